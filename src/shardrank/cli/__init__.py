@@ -1,0 +1,1 @@
+"""The command line: the argument parser and one error handler; nothing else."""

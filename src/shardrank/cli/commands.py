@@ -1,0 +1,100 @@
+"""One function per command: turn parsed arguments into an API call and print the outcome."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from typing import Any
+
+from .. import api
+from ..errors import NotConvergedError
+from ..ingest.build import BuildOptions
+from ..progress import Reporter
+from ..solve.options import RankOptions
+from .format import print_facts, print_top
+
+
+def cmd_build(a: argparse.Namespace, rep: Reporter) -> int:
+    o = BuildOptions(
+        src=a.src, dst=a.dst, weight=a.weight, nodes=a.nodes, self_loops=a.self_loops,
+        drop_nulls=a.drop_nulls, memory=a.memory, threads=a.threads, block_nodes=a.block_nodes,
+        id_width=a.id_width if a.id_width == "auto" else int(a.id_width), overwrite=a.overwrite,
+    )
+    m = api.build_store(a.edges, a.out, o, rep)
+    c = m.counts
+    if not a.quiet and a.log_format == "text":
+        print(f"{a.out}: {m.n_nodes:,} nodes, {m.n_edges:,} edges in {len(m.blocks)} blocks; "
+              f"{c.get('dead_ends', 0):,} dead ends, {c.get('duplicates_merged', 0):,} duplicates merged, "
+              f"{c.get('self_loops', 0):,} self-loops kept, {c.get('rows_dropped_null', 0):,} null rows dropped")
+    return 0
+
+
+def cmd_inspect(a: argparse.Namespace, rep: Reporter) -> int:
+    facts = api.inspect_store(a.store)
+    if a.json:
+        print(json.dumps(facts, indent=2))
+    else:
+        print_facts(facts)
+    return 0
+
+
+def cmd_verify(a: argparse.Namespace, rep: Reporter) -> int:
+    reader = api.open_store(a.store)
+
+    def prog(name: str, i: int, n: int) -> None:
+        rep.progress("verifying", i + 1, n, "files")
+
+    info = api.verify_store(reader, prog)
+    rep.done()
+    if not a.quiet:
+        print(f"{a.store}: sound ({info['files']} files, {info['blocks']} blocks, {info['bytes']:,} bytes checked)")
+    return 0
+
+
+def _rank_options(a: argparse.Namespace) -> RankOptions:
+    return RankOptions(
+        damping=a.damping, tol=a.tol, max_iter=a.max_iter, method=a.method, dead_ends=a.dead_ends,
+        teleport=a.teleport, ignore_unknown_keys=a.ignore_unknown_keys, init=a.init, threads=a.threads,
+        checkpoint_every=a.checkpoint_every, checkpoint_seconds=a.checkpoint_seconds, engine=a.engine,
+    )
+
+
+def _finish(res: api.RankResult, a: argparse.Namespace, rep: Reporter) -> int:
+    if not a.quiet and a.log_format == "text":
+        print_top(res.top(10), res.n_nodes, title=f"top 10 of {res.n_nodes:,} nodes")
+    if not res.converged:
+        e = NotConvergedError(
+            f"not converged: after {res.iterations} iterations the L1 error bound is {res.error_bound:.3e} "
+            f"> tol {res.summary['tol']:g}; the run is saved in {res.run_dir}",
+            hint="rank again with a larger --max-iter and --init RUN (warm start), or a looser --tol",
+        )
+        raise e
+    return 0
+
+
+def cmd_rank(a: argparse.Namespace, rep: Reporter) -> int:
+    res = api.rank(a.store, a.out, _rank_options(a), rep, overwrite=a.overwrite)
+    return _finish(res, a, rep)
+
+
+def cmd_resume(a: argparse.Namespace, rep: Reporter) -> int:
+    given: dict[str, Any] = {k: getattr(a, k) for k in ("damping", "tol", "max_iter", "method", "dead_ends")}
+    expect = None
+    if any(v is not None for v in given.values()):
+        from ..results.result import read_run_json
+        from pathlib import Path
+
+        doc = read_run_json(Path(a.run))
+        base = {k: doc["options"][k] for k in given}
+        base.update({k: v for k, v in given.items() if v is not None})
+        expect = RankOptions(**base)
+    res = api.resume(a.run, rep, store=a.store, threads=a.threads, expect=expect)
+    a.overwrite = False
+    return _finish(res, a, rep)
+
+
+def cmd_demo(a: argparse.Namespace, rep: Reporter) -> int:
+    from ..demo import run_demo
+
+    return run_demo(a.dir, a.size, rep, quiet=a.quiet, out=sys.stdout)

@@ -1,0 +1,184 @@
+"""The argument parser: every command, option and help text of the CLI."""
+
+from __future__ import annotations
+
+import argparse
+
+from .. import settings
+from ..errors import EXIT_CODES
+from . import commands
+
+EXIT_TABLE = "exit codes:\n" + "\n".join(f"  {k:<4} {v}" for k, v in EXIT_CODES.items())
+
+DESCRIPTION = """\
+Rank the nodes of very large directed graphs (PageRank), out of core.
+
+A typical night:
+  shardrank build edges/*.parquet --out crawl.store      # edge tables -> shard store
+  shardrank rank crawl.store --out crawl.run             # PageRank with a guaranteed error bound
+  shardrank top crawl.run -k 20                          # the highest scores, by your own keys
+
+Run `shardrank demo` to see it all on an invented web crawl.
+"""
+
+
+class _Fmt(argparse.RawDescriptionHelpFormatter, argparse.ArgumentDefaultsHelpFormatter):
+    pass
+
+
+def _common(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("output")
+    g.add_argument("-q", "--quiet", action="store_true", help="print no progress (errors still go to stderr)")
+    g.add_argument("--log-format", choices=("text", "json"), default="text",
+                   help="progress and events on stderr: text for people, json (one object a line) for schedulers")
+
+
+def _sub(sp: argparse._SubParsersAction, name: str, help: str, desc: str, func: object) -> argparse.ArgumentParser:  # type: ignore[type-arg]
+    p = sp.add_parser(name, help=help, description=desc, formatter_class=_Fmt, epilog=EXIT_TABLE)
+    p.set_defaults(func=func)
+    return p
+
+
+def _build_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "build", "turn edge tables into a shard store", """\
+Read edge tables (Parquet files, directories - hive-partitioned too - or globs; CSV/TSV edge
+lists, optionally .gz/.zst, '#' comments, with or without a header) through DuckDB, map keys
+to dense ids, merge duplicate edges, and write a store of memory-mapped CSR shards.
+
+Keys may be integers (ids in numeric order) or strings such as URLs (ids in lexicographic
+order, so pages of one host sit together). Nodes that only appear as targets become dead ends.
+Memory stays under --memory whatever the input size: DuckDB spills to a temporary directory
+next to the store.
+
+examples:
+  shardrank build crawl/2026-12-01/ --out crawl.store
+  shardrank build 'links/*.csv.gz' --src from_url --dst to_url --out links.store
+  shardrank build cites.parquet --weight n --self-loops drop --memory 8GB --out cites.store
+""", commands.cmd_build)
+    p.add_argument("edges", nargs="+", metavar="EDGES", help="edge files, directories or glob patterns")
+    p.add_argument("--out", required=True, metavar="STORE", help="the store directory to create")
+    p.add_argument("--src", metavar="COL", help="source key column (default: 'src' if present, else the first column)")
+    p.add_argument("--dst", metavar="COL", help="destination key column (default: 'dst' if present, else the second column)")
+    p.add_argument("--weight", metavar="COL", help="edge weight column: positive finite numbers; duplicates are summed (default: unweighted)")
+    p.add_argument("--nodes", metavar="FILE", action="append", default=[],
+                   help="a table of extra node keys (column 'key' or the first); adds isolated nodes")
+    p.add_argument("--self-loops", choices=("keep", "drop"), default="keep", help="keep or drop edges from a node to itself")
+    p.add_argument("--drop-nulls", action="store_true", help="skip rows with a null key (they are counted) instead of failing")
+    p.add_argument("--memory", metavar="SIZE", help="memory budget, e.g. 8GB or 40%% (default: 50%% of RAM)")
+    p.add_argument("--threads", type=int, metavar="N", help="DuckDB threads (default: all cores)")
+    p.add_argument("--block-nodes", type=int, default=settings.BLOCK_NODES, metavar="N",
+                   help="destination ids per shard")
+    p.add_argument("--id-width", choices=("auto", "16", "32", "64"), default="auto",
+                   help="bits of a stored source id (auto: 32 below 2^32 nodes, else 64)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing STORE")
+    _common(p)
+
+
+def _rank_opts(p: argparse.ArgumentParser, defaults: bool = True) -> None:
+    g = p.add_argument_group("what to compute")
+    g.add_argument("--damping", type=float, default=settings.DAMPING if defaults else None,
+                   help="probability of following a link (0 < d < 1; common range 0.8-0.9)")
+    g.add_argument("--tol", type=float, default=settings.TOL if defaults else None,
+                   help="guaranteed bound on the L1 distance between the result and the exact PageRank vector")
+    g.add_argument("--max-iter", type=int, default=settings.MAX_ITER if defaults else None,
+                   help="stop after this many iterations (exit 3 if tol was not reached; the run is saved)")
+    g.add_argument("--method", choices=("power", "gauss-seidel"), default=settings.METHOD if defaults else None,
+                   help="power iteration, or block Gauss-Seidel (uses each fresh block at once; fewer iterations)")
+    g.add_argument("--dead-ends", choices=("teleport", "uniform"), default=settings.DEAD_ENDS if defaults else None,
+                   help="where a dead end's score goes: along the teleport vector, or spread uniformly")
+
+
+def _rank_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "rank", "compute PageRank over a store", """\
+Compute PageRank: the stationary distribution of a random surfer who follows a random
+out-link with probability d (the damping factor) and otherwise teleports. A dead end (no
+out-links) hands its whole score to the teleport distribution (or, with --dead-ends uniform,
+to every node alike).
+
+The run stops when the L1 distance to the exact answer is provably at most --tol (from the
+measured residual: ||x - x*||_1 <= d/(1-d) * ||Gx - x||_1), never on a guess. If --max-iter
+comes first, the run is saved with its bound and the command exits 3.
+
+Memory: three float64 vectors of N nodes (about 24 bytes a node) plus small buffers; the
+shards are streamed memory-mapped, never loaded whole. Checkpoints are written about once a
+minute; `shardrank resume RUN` continues a run that was interrupted.
+
+examples:
+  shardrank rank crawl.store --out crawl.run
+  shardrank rank crawl.store --out seeded.run --teleport trusted-hosts.csv
+  shardrank rank crawl.store --out tonight.run --init last-night.run --tol 1e-10
+""", commands.cmd_rank)
+    p.add_argument("store", metavar="STORE", help="a store made by `shardrank build`")
+    p.add_argument("--out", required=True, metavar="RUN", help="the run directory to create")
+    _rank_opts(p)
+    g = p.add_argument_group("inputs by key")
+    g.add_argument("--teleport", metavar="FILE", help="personalization table: key, weight (Parquet or CSV); normalised once")
+    g.add_argument("--ignore-unknown-keys", action="store_true", help="skip --teleport keys the store does not have (reported)")
+    g.add_argument("--init", metavar="RUN_OR_TABLE", help="warm start from an earlier run or a key, score table (changes speed, not the answer)")
+    g = p.add_argument_group("execution")
+    g.add_argument("--threads", type=int, metavar="N", help="kernel threads (results are identical for any N)")
+    g.add_argument("--checkpoint-every", type=int, metavar="N", help="checkpoint every N iterations")
+    g.add_argument("--checkpoint-seconds", type=float, default=settings.CHECKPOINT_SECONDS, metavar="S",
+                   help="checkpoint every S seconds (when --checkpoint-every is not given)")
+    g.add_argument("--engine", default="local", choices=("local",), help="where the iteration runs")
+    g.add_argument("--overwrite", action="store_true", help="replace an existing RUN")
+    _common(p)
+
+
+def _resume_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "resume", "continue an interrupted rank run", """\
+Continue a run from its newest checkpoint that verifies (falling back to the older one). The
+result is bit for bit the one an uninterrupted run gives. Refuses if the store changed since
+the run started, or if the options given here differ from the run's.
+
+example:
+  shardrank resume crawl.run
+""", commands.cmd_resume)
+    p.add_argument("run", metavar="RUN", help="the run directory of an interrupted `shardrank rank`")
+    p.add_argument("--store", metavar="STORE", help="the store, if it moved since the run started")
+    p.add_argument("--threads", type=int, metavar="N", help="kernel threads")
+    _rank_opts(p, defaults=False)
+    _common(p)
+
+
+def _inspect_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "inspect", "show facts about a store", """\
+Show nodes, edges, dead ends, self-loops, merged duplicates, nodes without in-links, degree
+quantiles, blocks and bytes on disk.
+
+example:
+  shardrank inspect crawl.store --json | jq .dead_ends
+""", commands.cmd_inspect)
+    p.add_argument("store", metavar="STORE")
+    p.add_argument("--json", action="store_true", help="print JSON (nodes, edges, dead_ends, ... at the top level)")
+    _common(p)
+
+
+def _verify_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "verify", "check a store's checksums and invariants", """\
+Read every byte of a store: checksums of every file, then the structure (offsets monotone,
+ids in range, sources sorted, degrees equal to what the shards imply). Exit 0 when sound,
+4 naming the damaged file.
+""", commands.cmd_verify)
+    p.add_argument("store", metavar="STORE")
+    _common(p)
+
+
+def _demo_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "demo", "run the whole job on an invented web crawl", """\
+Generate an invented web crawl, build its store, rank it, and show the top pages.
+""", commands.cmd_demo)
+    p.add_argument("--dir", default="shardrank-demo", metavar="DIR", help="where to put the demo's files")
+    p.add_argument("--size", choices=("small", "medium"), default="small", help="how big a crawl to invent")
+    _common(p)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="shardrank", description=DESCRIPTION, formatter_class=_Fmt, epilog=EXIT_TABLE)
+    from .. import __version__
+
+    p.add_argument("--version", action="version", version=f"shardrank {__version__}")
+    sp = p.add_subparsers(title="commands", metavar="COMMAND")
+    for add in (_demo_cmd, _build_cmd, _inspect_cmd, _verify_cmd, _rank_cmd, _resume_cmd):
+        add(sp)
+    return p

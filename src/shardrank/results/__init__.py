@@ -1,0 +1,1 @@
+"""Scores by key, top-k, export and run comparison."""

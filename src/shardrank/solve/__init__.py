@@ -1,0 +1,1 @@
+"""The iteration: options, teleport and warm start, engines, the driver, checkpoints, runs."""

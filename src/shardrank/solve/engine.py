@@ -1,0 +1,106 @@
+"""Engines run the two kinds of sweep over a store; the driver decides which and when.
+
+An engine owns where the work happens. :class:`LocalEngine` streams memory-mapped shards
+through the numba kernels in this process. A second engine (distributed) implements the same
+two methods; the driver, the convergence test and the checkpoints are shared.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from typing import Protocol
+
+import numba
+import numpy as np
+
+from .. import settings
+from ..kernels import gather_block, n_chunks, scale_range
+from ..store.reader import StoreReader
+from .problem import Problem
+
+BlockHook = Callable[[int, int], None]
+
+
+class Engine(Protocol):
+    name: str
+
+    def power_step(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+        """Replace ``r`` by G r (unnormalised); return ||G r - r||_1."""
+        ...
+
+    def gauss_seidel_sweep(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+        """One block Gauss-Seidel sweep in place; return the L1 change."""
+        ...
+
+    def close(self) -> None: ...
+
+
+class LocalEngine:
+    """Streams the shards of one store through the kernels, block by block, in block order.
+
+    Memory: ``r`` (the caller's) and ``s`` are float64[N]; out-weights are memory-mapped;
+    one block-sized teleport buffer when the teleport is not uniform.
+    """
+
+    name = "local"
+
+    def __init__(self, reader: StoreReader, problem: Problem, threads: int | None = None) -> None:
+        self.reader = reader
+        self.problem = problem
+        if threads:
+            numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+        self.threads = numba.get_num_threads()
+        self.w_out = np.asarray(reader.out_weight())
+        self.s = np.empty(reader.n_nodes, dtype=np.float64)
+        self.chunk = settings.ROW_CHUNK
+        self.blocks = reader.manifest.blocks
+        self._v_buf = np.empty(0 if problem.teleport.uniform else max(b.n_nodes for b in self.blocks))
+        self._no_v = np.empty(0, dtype=np.float64)
+        self._no_w = np.empty(0, dtype=np.float64)
+        self._dead_parts = [np.zeros(n_chunks(b.n_nodes, self.chunk)) for b in self.blocks]
+        self._res_parts = [np.zeros(n_chunks(b.n_nodes, self.chunk)) for b in self.blocks]
+
+    def _scale_block(self, r: np.ndarray, i: int) -> float:
+        b = self.blocks[i]
+        part = self._dead_parts[i]
+        scale_range(r, self.w_out, b.first_node, b.first_node + b.n_nodes, self.chunk, self.s, part)
+        return math.fsum(part)
+
+    def _gather(self, r: np.ndarray, i: int, dead_mass: float) -> float:
+        b = self.blocks[i]
+        sh = self.reader.shard(i)
+        add_u, add_t = self.problem.constants(dead_mass)
+        tele = self.problem.teleport
+        v = self._no_v if tele.uniform else tele.fill_block(b.first_node, b.n_nodes, self._v_buf)
+        w = self._no_w if sh.weights is None else np.asarray(sh.weights)
+        part = self._res_parts[i]
+        gather_block(np.asarray(sh.offsets), np.asarray(sh.sources), w, self.s, b.first_node,
+                     self.problem.damping, add_u, add_t, v, self.chunk, r, part)
+        return math.fsum(part)
+
+    def power_step(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+        dead = [self._scale_block(r, i) for i in range(len(self.blocks))]
+        dead_mass = math.fsum(dead)
+        res = []
+        for i in range(len(self.blocks)):
+            res.append(self._gather(r, i, dead_mass))
+            if on_block:
+                on_block(i, len(self.blocks))
+        return math.fsum(res)
+
+    def gauss_seidel_sweep(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+        dead = [self._scale_block(r, i) for i in range(len(self.blocks))]
+        res = []
+        for i in range(len(self.blocks)):
+            res.append(self._gather(r, i, math.fsum(dead)))
+            dead[i] = self._scale_block(r, i)  # block i's fresh scores feed the blocks after it
+            if on_block:
+                on_block(i, len(self.blocks))
+        return math.fsum(res)
+
+    def close(self) -> None:
+        pass
+
+
+ENGINES: dict[str, Callable[..., Engine]] = {"local": LocalEngine}

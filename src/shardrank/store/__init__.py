@@ -1,0 +1,1 @@
+"""The on-disk store: manifest, layout, atomic writes, writer and verified reader."""

@@ -1,0 +1,143 @@
+"""Write a store into a temporary directory, block by block, then publish it atomically.
+
+The caller streams edges sorted by (destination, source); the writer cuts them into blocks,
+hashes every byte as it writes, and writes manifest.json last.
+"""
+
+from __future__ import annotations
+
+import os
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import IO, Any
+
+import numpy as np
+
+from . import layout
+from .atomic import HashingWriter, npy_header, publish_dir, sha256_file, write_json_atomic, write_npy_atomic
+from .manifest import BlockInfo, FileInfo, StoreManifest
+
+
+class _StreamFile:
+    """A .npy file of known length written sequentially through a hashing writer."""
+
+    def __init__(self, path: Path, dtype: np.dtype, n: int) -> None:
+        self.path = path
+        self.dtype = np.dtype(dtype).newbyteorder("<")
+        self.expected = n
+        self.written = 0
+        self._f: IO[bytes] = open(path, "wb")
+        self._w = HashingWriter(self._f)
+        self._w.write(npy_header(self.dtype, n))
+
+    def write(self, arr: np.ndarray) -> None:
+        a = np.ascontiguousarray(arr, dtype=self.dtype)
+        self.written += a.shape[0]
+        if self.written > self.expected:
+            raise RuntimeError(f"{self.path}: more items than announced ({self.expected})")
+        self._w.write(memoryview(a).cast("B"))
+
+    def close(self) -> FileInfo:
+        if self.written != self.expected:
+            raise RuntimeError(f"{self.path}: {self.written} items written, {self.expected} announced")
+        self._f.flush()
+        os.fsync(self._f.fileno())
+        self._f.close()
+        return FileInfo(bytes=self._w.n_bytes, sha256=self._w.hexdigest())
+
+
+class StoreWriter:
+    """Builds one store in ``tmp`` (a sibling of its final path)."""
+
+    def __init__(self, tmp: Path, n_nodes: int, block_nodes: int, source_dtype: str, weighted: bool):
+        self.tmp = tmp
+        self.n_nodes = n_nodes
+        self.block_nodes = block_nodes
+        self.source_dtype = np.dtype(source_dtype)
+        self.weighted = weighted
+        self.files: dict[str, FileInfo] = {}
+        self.blocks: list[BlockInfo] = []
+        (tmp / layout.SHARD_DIR).mkdir(parents=True, exist_ok=True)
+        self._cur = -1
+        self._src: _StreamFile | None = None
+        self._wgt: _StreamFile | None = None
+        self.n_edges = 0
+
+    # -- whole arrays --------------------------------------------------------------------------
+    def write_array(self, name: str, arr: np.ndarray) -> None:
+        n_bytes, sha = write_npy_atomic(self.tmp / name, arr)
+        self.files[name] = FileInfo(bytes=n_bytes, sha256=sha)
+
+    def add_file(self, name: str) -> None:
+        """Register a file already written into the temporary directory (e.g. by DuckDB)."""
+        p = self.tmp / name
+        self.files[name] = FileInfo(bytes=p.stat().st_size, sha256=sha256_file(p))
+
+    # -- shards --------------------------------------------------------------------------------
+    def begin_shards(self, in_degree: np.ndarray) -> None:
+        """Fix block boundaries and write every block's offsets (from the in-degrees)."""
+        n, bn = self.n_nodes, self.block_nodes
+        for i, first in enumerate(range(0, n, bn)):
+            deg = in_degree[first : first + bn]
+            off = np.zeros(deg.shape[0] + 1, dtype=np.int64)
+            np.cumsum(deg, out=off[1:])
+            self.write_array(layout.shard_offsets(i), off)
+            self.blocks.append(BlockInfo(i, first, int(deg.shape[0]), int(off[-1])))
+
+    def _open_block(self, i: int) -> None:
+        self._close_block()
+        b = self.blocks[i]
+        self._src = _StreamFile(self.tmp / layout.shard_sources(i), self.source_dtype, b.n_edges)
+        if self.weighted:
+            self._wgt = _StreamFile(self.tmp / layout.shard_weights(i), np.dtype(np.float64), b.n_edges)
+        self._cur = i
+
+    def _close_block(self) -> None:
+        if self._src is not None:
+            self.files[layout.shard_sources(self._cur)] = self._src.close()
+            self._src = None
+        if self._wgt is not None:
+            self.files[layout.shard_weights(self._cur)] = self._wgt.close()
+            self._wgt = None
+
+    def add_edges(self, dst: np.ndarray, src: np.ndarray, weight: np.ndarray | None) -> None:
+        """Append a batch of edges; batches must arrive sorted by (dst, src)."""
+        if dst.shape[0] == 0:
+            return
+        blk = dst // self.block_nodes
+        # cut the batch where the block changes (dst is sorted, so blk is too)
+        cuts = np.flatnonzero(np.diff(blk)) + 1
+        starts = np.concatenate([[0], cuts])
+        ends = np.concatenate([cuts, [dst.shape[0]]])
+        for s, e in zip(starts.tolist(), ends.tolist(), strict=True):
+            b = int(blk[s])
+            while self._cur < b:
+                self._open_block(self._cur + 1)
+            assert self._src is not None
+            self._src.write(src[s:e])
+            if self._wgt is not None and weight is not None:
+                self._wgt.write(weight[s:e])
+        self.n_edges += int(dst.shape[0])
+
+    def finish_shards(self) -> None:
+        while self._cur < len(self.blocks) - 1:
+            self._open_block(self._cur + 1)
+        self._close_block()
+
+    # -- manifest ------------------------------------------------------------------------------
+    def write_manifest(
+        self, key_type: str, input_info: dict[str, Any], options: dict[str, Any], counts: dict[str, int]
+    ) -> StoreManifest:
+        m = StoreManifest(
+            n_nodes=self.n_nodes, n_edges=self.n_edges, key_type=key_type, weighted=self.weighted,
+            source_dtype=self.source_dtype.newbyteorder("<").str, block_nodes=self.block_nodes,
+            blocks=self.blocks, files=dict(sorted(self.files.items())), input=input_info,
+            options=options, counts=counts,
+            created=datetime.now(UTC).isoformat(timespec="seconds"),
+        )
+        m.fingerprint = m.compute_fingerprint()
+        write_json_atomic(self.tmp / layout.MANIFEST, m.to_json())
+        return m
+
+    def publish(self, final: Path, overwrite: bool) -> None:
+        publish_dir(self.tmp, final, overwrite)
