@@ -95,3 +95,49 @@ def gather_block(
             res += abs(y - r_inout[g])
             r_inout[g] = y
         resid_partial_out[c] = res
+
+
+@njit(parallel=True, cache=True)
+def gather_block_fresh(
+    offsets, sources, weights, s, w_out, first, damping, add_uniform, add_teleport, v_block, chunk,
+    r_inout, resid_partial_out,
+):  # pragma: no cover - jit
+    """Gauss-Seidel variant of :func:`gather_block`: rows of a chunk are computed in order and a
+    row reads the fresh scores of the rows before it in its own chunk.
+
+    A source ``i`` with ``chunk_start <= i < j`` (global ids; already recomputed in this chunk)
+    contributes ``r_inout[i] / w_out[i]`` (its new score); every other source contributes
+    ``s[i]``. Each chunk reads only its own fresh rows, so the result does not depend on how
+    chunks are scheduled over threads. Parameters as in :func:`gather_block`, plus
+    ``w_out`` float64[N].
+    """
+    n_rows = offsets.shape[0] - 1
+    nc = (n_rows + chunk - 1) // chunk
+    has_w = weights.shape[0] > 0
+    has_v = v_block.shape[0] > 0
+    for c in prange(nc):
+        a = c * chunk
+        b = min(a + chunk, n_rows)
+        lo = first + a  # first global id of this chunk
+        res = 0.0
+        for j in range(a, b):
+            g = first + j
+            acc = 0.0
+            for e in range(offsets[j], offsets[j + 1]):
+                i = sources[e]
+                if lo <= i < g:
+                    # fresh: r_inout[i] was recomputed earlier in this chunk (w_out[i] > 0 here,
+                    # since a dead end has no out-links and so is never a source)
+                    x = r_inout[i] / w_out[i]
+                else:
+                    x = s[i]
+                if has_w:
+                    acc += weights[e] * x
+                else:
+                    acc += x
+            y = damping * acc + add_uniform
+            if has_v:
+                y += add_teleport * v_block[j]
+            res += abs(y - r_inout[g])
+            r_inout[g] = y
+        resid_partial_out[c] = res

@@ -15,7 +15,7 @@ import numba
 import numpy as np
 
 from .. import settings
-from ..kernels import gather_block, n_chunks, scale_range
+from ..kernels import gather_block, gather_block_fresh, n_chunks, scale_range
 from ..store.reader import StoreReader
 from .problem import Problem
 
@@ -67,7 +67,7 @@ class LocalEngine:
         scale_range(r, self.w_out, b.first_node, b.first_node + b.n_nodes, self.chunk, self.s, part)
         return math.fsum(part)
 
-    def _gather(self, r: np.ndarray, i: int, dead_mass: float) -> float:
+    def _gather(self, r: np.ndarray, i: int, dead_mass: float, fresh: bool = False) -> float:
         b = self.blocks[i]
         sh = self.reader.shard(i)
         add_u, add_t = self.problem.constants(dead_mass)
@@ -75,8 +75,12 @@ class LocalEngine:
         v = self._no_v if tele.uniform else tele.fill_block(b.first_node, b.n_nodes, self._v_buf)
         w = self._no_w if sh.weights is None else np.asarray(sh.weights)
         part = self._res_parts[i]
-        gather_block(np.asarray(sh.offsets), np.asarray(sh.sources), w, self.s, b.first_node,
-                     self.problem.damping, add_u, add_t, v, self.chunk, r, part)
+        if fresh:
+            gather_block_fresh(np.asarray(sh.offsets), np.asarray(sh.sources), w, self.s, self.w_out,
+                               b.first_node, self.problem.damping, add_u, add_t, v, self.chunk, r, part)
+        else:
+            gather_block(np.asarray(sh.offsets), np.asarray(sh.sources), w, self.s, b.first_node,
+                         self.problem.damping, add_u, add_t, v, self.chunk, r, part)
         return math.fsum(part)
 
     def power_step(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
@@ -93,7 +97,7 @@ class LocalEngine:
         dead = [self._scale_block(r, i) for i in range(len(self.blocks))]
         res = []
         for i in range(len(self.blocks)):
-            res.append(self._gather(r, i, math.fsum(dead)))
+            res.append(self._gather(r, i, math.fsum(dead), fresh=True))
             dead[i] = self._scale_block(r, i)  # block i's fresh scores feed the blocks after it
             if on_block:
                 on_block(i, len(self.blocks))
