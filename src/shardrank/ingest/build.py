@@ -155,7 +155,7 @@ def build_store(
     try:
         manifest = _build(files, node_files, tmp, o, memory, rep)
         rep.event("phase", "publishing the store...", phase="publish")
-        StoreWriter_publish(tmp, out_p, o.overwrite)
+        _publish(tmp, out_p, o.overwrite)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
@@ -163,7 +163,7 @@ def build_store(
     return manifest
 
 
-def StoreWriter_publish(tmp: Path, out: Path, overwrite: bool) -> None:  # noqa: N802
+def _publish(tmp: Path, out: Path, overwrite: bool) -> None:
     from ..store.atomic import publish_dir
 
     try:
