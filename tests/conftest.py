@@ -61,3 +61,67 @@ def random_graph(rng: np.random.Generator, n: int, m: int) -> tuple[np.ndarray, 
     src = rng.integers(0, n, m)
     dst = rng.integers(0, n, m)
     return src, dst
+
+
+# --- store round trips (shared by tests/unit/test_store_*, tests/property, tests/e2e) ---------------
+
+
+def read_store_csr(store: Path) -> tuple[list[Any], np.ndarray, np.ndarray, np.ndarray | None]:
+    """(keys in id order, indptr, indices, weights) of the in-edge CSR read straight from the shards.
+
+    Row j holds the sources of destination j; built from StoreReader.shard(i) block by block.
+    """
+    r = shardrank.open_store(store)
+    indptr = [np.zeros(1, dtype=np.int64)]
+    indices, weights = [], []
+    base = 0
+    for i in range(r.n_blocks):
+        sh = r.shard(i)
+        assert sh.info.first_node == sum(a.shape[0] for a in indptr) - 1  # blocks tile 0..N-1
+        indptr.append(np.asarray(sh.offsets[1:], dtype=np.int64) + base)
+        base += int(sh.offsets[-1])
+        indices.append(np.asarray(sh.sources, dtype=np.int64))
+        if sh.weights is not None:
+            weights.append(np.asarray(sh.weights))
+    w = np.concatenate(weights) if r.weighted else None
+    return r.keys().to_pylist(), np.concatenate(indptr), np.concatenate(indices), w
+
+
+def reference_csr(src: Sequence[Any], dst: Sequence[Any], weight: Sequence[float] | None = None,
+                  extra_nodes: Sequence[Any] = (), self_loops: str = "keep") -> tuple[list[Any], Any]:
+    """The normalised edge set built independently with scipy.sparse (coo -> csr sums duplicates).
+
+    Ids follow sorted(unique keys): numeric order for ints, code point order for strings.
+    Returns (keys, csr) with csr[dst_id, src_id] = summed weight (or the duplicate count).
+    """
+    import scipy.sparse as sp
+
+    keys = sorted(set(src) | set(dst) | set(extra_nodes))
+    ids = {k: i for i, k in enumerate(keys)}
+    s = np.array([ids[k] for k in src], dtype=np.int64)
+    d = np.array([ids[k] for k in dst], dtype=np.int64)
+    w = np.ones(len(s)) if weight is None else np.asarray(weight, dtype=np.float64)
+    if self_loops == "drop":
+        keep = s != d
+        s, d, w = s[keep], d[keep], w[keep]
+    n = len(keys)
+    m = sp.coo_matrix((w, (d, s)), shape=(n, n)).tocsr()  # duplicates are summed here
+    m.sum_duplicates()
+    m.sort_indices()
+    return keys, m
+
+
+def assert_store_matches(store: Path, src: Sequence[Any], dst: Sequence[Any],
+                         weight: Sequence[float] | None = None, extra_nodes: Sequence[Any] = (),
+                         self_loops: str = "keep") -> None:
+    """The store's keys and in-edges equal the scipy reference (weights to 1e-12 relative)."""
+    keys, indptr, indices, w = read_store_csr(store)
+    ref_keys, ref = reference_csr(src, dst, weight, extra_nodes, self_loops)
+    assert keys == ref_keys
+    np.testing.assert_array_equal(indptr, ref.indptr)
+    np.testing.assert_array_equal(indices, ref.indices)
+    if weight is None:
+        assert w is None
+    else:
+        assert w is not None
+        np.testing.assert_allclose(w, ref.data, rtol=1e-12, atol=0)
