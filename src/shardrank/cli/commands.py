@@ -17,7 +17,7 @@ from .format import print_facts, print_top
 
 def cmd_build(a: argparse.Namespace, rep: Reporter) -> int:
     o = BuildOptions(
-        src=a.src, dst=a.dst, weight=a.weight, nodes=a.nodes, self_loops=a.self_loops,
+        src=a.src, dst=a.dst, weight=a.weight, nodes=a.nodes, self_loops=a.self_loops, header=a.header,
         drop_nulls=a.drop_nulls, memory=a.memory, threads=a.threads, block_nodes=a.block_nodes,
         id_width=a.id_width if a.id_width == "auto" else int(a.id_width), overwrite=a.overwrite,
     )

@@ -63,6 +63,9 @@ examples:
     p.add_argument("--nodes", metavar="FILE", action="append", default=[],
                    help="a table of extra node keys (column 'key' or the first); adds isolated nodes")
     p.add_argument("--self-loops", choices=("keep", "drop"), default="keep", help="keep or drop edges from a node to itself")
+    p.add_argument("--header", choices=("auto", "yes", "no"), default="auto",
+                   help="text inputs: does the first line name the columns? auto decides when it can "
+                        "(text over numbers, or it names --src/--dst) and asks otherwise")
     p.add_argument("--drop-nulls", action="store_true", help="skip rows with a null key (they are counted) instead of failing")
     p.add_argument("--memory", metavar="SIZE", help="memory budget, e.g. 8GB or 40%% (default: 50%% of RAM)")
     p.add_argument("--threads", type=int, metavar="N", help="DuckDB threads (default: all cores)")

@@ -26,7 +26,8 @@ from ..store import layout
 from ..store.manifest import StoreManifest
 from ..store.writer import StoreWriter
 from .sources import InputFile, fingerprint_inputs, resolve_inputs
-from .tables import Columns, arrow_reader, check_same_key_types, choose_columns, describe, scan_sql, sql_ident, sql_str
+from .tables import (Columns, arrow_reader, check_same_key_types, choose_columns, describe, scan_sql,
+                     sniff_text, sql_ident, sql_str)
 
 
 @dataclass
@@ -38,6 +39,7 @@ class BuildOptions:
     weight: str | None = None
     nodes: Sequence[str] = field(default_factory=list)
     self_loops: str = "keep"  # "keep" | "drop"
+    header: str = "auto"  # text inputs: "auto" | "yes" | "no" (does the first line name the columns?)
     drop_nulls: bool = False
     memory: str | int | None = None  # bytes, "8GB", "40%"; default settings.MEMORY_FRACTION of RAM
     threads: int | None = None
@@ -77,6 +79,8 @@ def _check_options(o: BuildOptions) -> None:
         raise BadInputError(f"--self-loops must be keep or drop, not {o.self_loops!r}")
     if o.block_nodes < 1:
         raise BadInputError("--block-nodes must be at least 1")
+    if o.header not in ("auto", "yes", "no"):
+        raise BadInputError(f"--header must be auto, yes or no, not {o.header!r}")
     if o.id_width not in ("auto", 16, 32, 64):
         raise BadInputError(f"--id-width must be auto, 16, 32 or 64, not {o.id_width!r}")
     if o.threads is not None and o.threads < 1:
@@ -191,6 +195,7 @@ def _build(
     con = _connect(tmp, memory, o.threads)
     try:
         where = str(files[0].path) if len(files) == 1 else f"edge files ({files[0].path}, ...)"
+        files = sniff_text(con, files, o.header, [c for c in (o.src, o.dst, o.weight) if c] or ["src", "dst"])
         cols = choose_columns(describe(con, files), where, o.src, o.dst, o.weight)
         check_same_key_types(con, files, cols)
         counts = _validate_and_stage(con, files, cols, o, rep, where)
@@ -274,6 +279,7 @@ def _map_keys(
     """Dense ids 0..N-1 in key order (lexicographic strings, numeric integers)."""
     extra = ""
     if node_files:
+        node_files = sniff_text(con, node_files, o.header, ["key"], min_columns=1)
         schema = describe(con, node_files)
         name = "key" if "key" in dict(schema) else schema[0][0]
         from .tables import key_class

@@ -19,6 +19,8 @@ COMPRESSED = (".gz", ".zst")
 class InputFile:
     path: Path
     kind: str  # "parquet" | "csv"
+    delim: str | None = None  # text files: the delimiter decided by tables.sniff_text
+    header: bool | None = None  # text files: whether the first line names the columns
 
 
 def _kind_of(path: Path) -> str:
@@ -28,6 +30,8 @@ def _kind_of(path: Path) -> str:
             head = f.read(4096)
     except OSError as e:
         raise BadInputError(f"{path}: cannot be read ({e.strerror})") from None
+    if not head:
+        raise BadInputError(f"{path}: is empty (0 bytes)", hint="remove it from the inputs or re-export it")
     if head[:4] == b"PAR1":
         return "parquet"
     name = path.name.lower()

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+from pathlib import Path
 
 import duckdb
 
@@ -33,10 +35,77 @@ def scan_sql(files: list[InputFile]) -> str:
     if pq:
         lst = ", ".join(sql_str(str(f.path)) for f in pq)
         parts.append(f"SELECT * FROM read_parquet([{lst}], union_by_name = true)")
-    if csv:
-        lst = ", ".join(sql_str(str(f.path)) for f in csv)
-        parts.append(f"SELECT * FROM read_csv([{lst}], comment = '#', union_by_name = true)")
+    groups: dict[tuple[str | None, bool | None], list[InputFile]] = {}
+    for f in csv:  # one reader per (delimiter, header) that sniff_text decided
+        groups.setdefault((f.delim, f.header), []).append(f)
+    for (delim, header), fs in groups.items():
+        lst = ", ".join(sql_str(str(f.path)) for f in fs)
+        opts = "" if delim is None else f", delim = {sql_str(delim)}"
+        opts += "" if header is None else f", header = {str(header).lower()}"
+        parts.append(f"SELECT * FROM read_csv([{lst}], comment = '#', union_by_name = true{opts})")
     return "(" + " UNION ALL BY NAME ".join(parts) + ")"
+
+
+def _sniff(con: duckdb.DuckDBPyConnection, f: InputFile, delim: str | None) -> tuple[str, bool, list[tuple[str, str]]]:
+    opt = "" if delim is None else f", delim = {sql_str(delim)}"
+    try:
+        row = con.execute(
+            f"SELECT Delimiter, HasHeader, Columns FROM sniff_csv({sql_str(str(f.path))}, comment = '#'{opt})"
+        ).fetchall()[0]
+    except duckdb.Error as e:
+        raise BadInputError(
+            f"{f.path}: cannot be read as a delimited text edge list ({str(e).splitlines()[0]})",
+            hint="check that the file is a complete CSV/TSV file (or Parquet)",
+        ) from None
+    return str(row[0]), bool(row[1]), [(c["name"], c["type"]) for c in row[2]]
+
+
+def sniff_text(
+    con: duckdb.DuckDBPyConnection, files: list[InputFile], header: str, names: Sequence[str],
+    min_columns: int = 2,
+) -> list[InputFile]:
+    """Decide each text file's delimiter and whether its first line is a header.
+
+    A sniffer guesses "header" whenever every column holds text, which would silently drop the
+    first edge of a headerless list of string keys. So a header is taken only when the first
+    line does not parse like the rest (text over numbers), when it holds ``names`` (the columns
+    the user asked for), or when ``header`` is "yes"; otherwise the ambiguity is an error.
+    A single column is retried with a space delimiter ("1 2" edge lists).
+    """
+    out: list[InputFile] = []
+    decided: tuple[Path, bool] | None = None
+    for f in files:
+        if f.kind != "csv":
+            out.append(f)
+            continue
+        delim, has_header, cols = _sniff(con, f, None)
+        if len(cols) < min_columns:
+            d2 = _sniff(con, f, " ")
+            if len(d2[2]) >= min_columns:
+                delim, has_header, cols = d2
+        if header != "auto":
+            h = header == "yes"
+        elif not has_header:
+            h = False
+        elif any(t.upper() != "VARCHAR" for _n, t in cols) or set(names) <= {n for n, _t in cols}:
+            h = True
+        else:
+            first = ", ".join(repr(n) for n, _t in cols)
+            raise BadInputError(
+                f"{f.path}: cannot tell whether the first line ({first}) is a header or an edge "
+                "(every column holds text)",
+                hint="pass --header yes if it names the columns or --header no if it is an edge "
+                "(or name its columns with --src/--dst)",
+            )
+        if decided is not None and decided[1] != h:
+            with_h, without = (f.path, decided[0]) if h else (decided[0], f.path)
+            raise BadInputError(
+                f"{with_h} starts with a header line but {without} does not",
+                hint="give every text file a header or none, or pass --header yes/no",
+            )
+        decided = (f.path, h)
+        out.append(replace(f, delim=delim, header=h))
+    return out
 
 
 def key_class(duck_type: str) -> str | None:
