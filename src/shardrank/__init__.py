@@ -6,6 +6,7 @@ from .api import (
     BuildOptions,
     RankOptions,
     RankResult,
+    RefreshOptions,
     Reporter,
     StoreManifest,
     StoreReader,
@@ -14,6 +15,7 @@ from .api import (
     open_run,
     open_store,
     rank,
+    refresh,
     resume,
     verify_store,
 )
@@ -37,6 +39,7 @@ __all__ = [
     "NotConvergedError",
     "RankOptions",
     "RankResult",
+    "RefreshOptions",
     "Reporter",
     "ShardrankError",
     "StoreManifest",
@@ -47,6 +50,7 @@ __all__ = [
     "open_run",
     "open_store",
     "rank",
+    "refresh",
     "resume",
     "verify_store",
 ]

@@ -13,6 +13,7 @@ from typing import Any
 
 from .ingest.build import BuildOptions, build_store
 from .progress import Reporter
+from .refresh import RefreshOptions, refresh
 from .results.result import RankResult, open_run
 from .solve.options import RankOptions
 from .solve.run import rank, resume
@@ -37,6 +38,7 @@ __all__ = [
     "BuildOptions",
     "RankOptions",
     "RankResult",
+    "RefreshOptions",
     "Reporter",
     "StoreManifest",
     "StoreReader",
@@ -45,6 +47,7 @@ __all__ = [
     "open_run",
     "open_store",
     "rank",
+    "refresh",
     "resume",
     "verify_store",
 ]

@@ -36,3 +36,6 @@ TOP_K = 25  # rows shown by `shardrank top`
 COMPARE_K = 1000  # top-k used by `shardrank compare`
 PROGRESS_INTERVAL = 0.5  # seconds between progress redraws on a terminal
 PROGRESS_LOG_INTERVAL = 10.0  # seconds between progress lines when not on a terminal
+
+# --- refresh --------------------------------------------------------------------------------
+REFRESH_KEEP = 7  # generations (stores and runs) a refresh home keeps; the published run always stays

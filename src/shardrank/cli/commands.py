@@ -94,6 +94,31 @@ def cmd_resume(a: argparse.Namespace, rep: Reporter) -> int:
     return _finish(res, a, rep)
 
 
+def cmd_refresh(a: argparse.Namespace, rep: Reporter) -> int:
+    from ..refresh import RefreshOptions
+    from ..refresh.checks import parse_overlap_guard
+
+    o = RefreshOptions(
+        build=BuildOptions(
+            src=a.src, dst=a.dst, weight=a.weight, nodes=a.nodes, self_loops=a.self_loops, header=a.header,
+            drop_nulls=a.drop_nulls, memory=a.memory, threads=a.threads, block_nodes=a.block_nodes,
+            id_width=a.id_width if a.id_width == "auto" else int(a.id_width)),
+        rank=RankOptions(
+            damping=a.damping, tol=a.tol, max_iter=a.max_iter, method=a.method, dead_ends=a.dead_ends,
+            teleport=a.teleport, ignore_unknown_keys=a.ignore_unknown_keys, threads=a.threads,
+            checkpoint_every=a.checkpoint_every, checkpoint_seconds=a.checkpoint_seconds),
+        keep=a.keep, max_l1=a.max_l1,
+        min_overlap=parse_overlap_guard(a.min_overlap) if a.min_overlap else None,
+    )
+
+    def print_summary(summary: dict[str, Any]) -> None:
+        # one line on stdout, also when the result is refused (the error follows on stderr)
+        print(json.dumps(summary, default=str), flush=True)
+
+    api.refresh(a.edges, a.home, o, rep, on_summary=print_summary)
+    return 0
+
+
 def cmd_demo(a: argparse.Namespace, rep: Reporter) -> int:
     from ..demo import run_demo
 

@@ -176,12 +176,63 @@ Generate an invented web crawl, build its store, rank it, and show the top pages
     _common(p)
 
 
+def _refresh_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "refresh", "recompute and publish a new snapshot unattended (for schedulers)", """\
+One scheduled recomputation in a home directory, safe to run from cron or a timer:
+
+  1. lock HOME (a second refresh exits 75 at once: "try later")
+  2. build a store generation from the snapshot (reused when the inputs did not change)
+  3. rank it warm-started from the published run, by key, with checkpoints
+     (an interrupted refresh resumes where it stopped on its next invocation)
+  4. validate: converged within --tol, scores sum to 1, no NaN or negative score, node
+     count as built; then the optional guards against the published run
+  5. publish: HOME/current -> runs/gen-N, swapped atomically (readers use
+     HOME/current/scores.parquet and never see a half-written run)
+  6. keep the newest --keep generations (never the published one)
+  7. print one JSON summary line on stdout (also RUN/refresh.json)
+
+A run that fails validation or a guard is kept but not published (exit 3, 4 or 5).
+See docs/nightly.md.
+
+examples:
+  shardrank refresh --edges crawl/2026-12-01/ --home /srv/rank
+  shardrank refresh --edges 'links/*.parquet' --home /srv/rank --keep 3 --max-l1 0.2 --min-overlap 1000:0.8
+""", commands.cmd_refresh)
+    p.add_argument("--edges", nargs="+", required=True, metavar="SOURCE", help="edge files, directories or glob patterns of tonight's snapshot")
+    p.add_argument("--home", required=True, metavar="DIR", help="the refresh home: generations, the lock and the 'current' link live here")
+    p.add_argument("--keep", type=int, default=settings.REFRESH_KEEP, metavar="N",
+                   help="generations to keep (the published run and the store it uses are never removed)")
+    g = p.add_argument_group("publishing guards (compared with the published run, by key)")
+    g.add_argument("--max-l1", type=float, metavar="X", help="refuse to publish when the L1 distance to the published scores exceeds X (0..2)")
+    g.add_argument("--min-overlap", metavar="K:F", help="refuse to publish when less than a fraction F of the top K stay in the top K")
+    g = p.add_argument_group("how to read the snapshot (as for `shardrank build`)")
+    g.add_argument("--src", metavar="COL", help="source key column")
+    g.add_argument("--dst", metavar="COL", help="destination key column")
+    g.add_argument("--weight", metavar="COL", help="edge weight column (unweighted when not given)")
+    g.add_argument("--nodes", metavar="FILE", action="append", default=[], help="a table of extra node keys")
+    g.add_argument("--self-loops", choices=("keep", "drop"), default="keep", help="keep or drop edges from a node to itself")
+    g.add_argument("--header", choices=("auto", "yes", "no"), default="auto", help="text inputs: does the first line name the columns?")
+    g.add_argument("--drop-nulls", action="store_true", help="skip rows with a null key instead of failing")
+    g.add_argument("--memory", metavar="SIZE", help="memory budget of the build, e.g. 8GB or 40%% (when not given: 50%% of RAM)")
+    g.add_argument("--block-nodes", type=int, default=settings.BLOCK_NODES, metavar="N", help="destination ids per shard")
+    g.add_argument("--id-width", choices=("auto", "16", "32", "64"), default="auto", help="bits of a stored source id")
+    _rank_opts(p)
+    g = p.add_argument_group("execution")
+    g.add_argument("--teleport", metavar="FILE", help="personalization table: key, weight")
+    g.add_argument("--ignore-unknown-keys", action="store_true", help="skip --teleport keys the store does not have")
+    g.add_argument("--threads", type=int, metavar="N", help="threads for the build and the kernels (results are identical for any N)")
+    g.add_argument("--checkpoint-every", type=int, metavar="N", help="checkpoint every N iterations")
+    g.add_argument("--checkpoint-seconds", type=float, default=settings.CHECKPOINT_SECONDS, metavar="S",
+                   help="checkpoint every S seconds (when --checkpoint-every is not given)")
+    _common(p)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="shardrank", description=DESCRIPTION, formatter_class=_Fmt, epilog=EXIT_TABLE)
     from .. import __version__
 
     p.add_argument("--version", action="version", version=f"shardrank {__version__}")
     sp = p.add_subparsers(title="commands", metavar="COMMAND")
-    for add in (_demo_cmd, _build_cmd, _inspect_cmd, _verify_cmd, _rank_cmd, _resume_cmd):
+    for add in (_demo_cmd, _build_cmd, _inspect_cmd, _verify_cmd, _rank_cmd, _resume_cmd, _refresh_cmd):
         add(sp)
     return p

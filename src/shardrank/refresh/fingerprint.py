@@ -1,0 +1,58 @@
+"""Fingerprints that decide whether earlier work can be reused: the snapshot's, computed
+before building (the same value `shardrank build` records in the store's manifest), and
+the teleport table's (the same value `shardrank rank` records in run.json)."""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from collections.abc import Sequence
+from pathlib import Path
+
+import duckdb
+
+from ..ingest.build import BuildOptions
+from ..ingest.sources import fingerprint_inputs, resolve_inputs
+from ..ingest.tables import choose_columns, describe, sniff_text
+from ..solve.options import RankOptions
+from ..solve.tables import load_teleport
+from ..store.reader import StoreReader
+
+
+def input_fingerprint(edges: Sequence[str | os.PathLike[str]], o: BuildOptions) -> str:
+    """``input["fingerprint"]`` of the store that ``build_store(edges, ..., o)`` would write.
+
+    Mirrors ingest/build.py: the resolved column names plus the options that shape the store
+    (a test checks that the two agree). Reads every input byte once (sha256).
+    """
+    files = resolve_inputs([str(e) for e in edges])
+    node_files = resolve_inputs([str(n) for n in o.nodes]) if o.nodes else []
+    con = duckdb.connect()
+    try:
+        where = str(files[0].path) if len(files) == 1 else f"edge files ({files[0].path}, ...)"
+        files = sniff_text(
+            con, files, o.header, [c for c in (o.src, o.dst, o.weight) if c] or ["src", "dst"]
+        )
+        cols = choose_columns(describe(con, files), where, o.src, o.dst, o.weight)
+    finally:
+        con.close()
+    fp_opts: dict[str, object] = {
+        "src": cols.src,
+        "dst": cols.dst,
+        "weight": cols.weight,
+        "self_loops": o.self_loops,
+        "drop_nulls": o.drop_nulls,
+        "block_nodes": o.block_nodes,
+    }
+    return str(fingerprint_inputs(files + node_files, fp_opts)["fingerprint"])
+
+
+def teleport_hash(store: Path, o: RankOptions) -> str:
+    """``teleport["hash"]`` that rank would record for ``o.teleport`` on ``store``."""
+    if o.teleport is None:
+        return "uniform"
+    ids, vals, _ = load_teleport(StoreReader.open(store), o.teleport, o.ignore_unknown_keys)
+    h = hashlib.sha256()
+    for a in (ids, vals):
+        h.update(a.tobytes())
+    return h.hexdigest()
