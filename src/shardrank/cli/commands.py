@@ -123,3 +123,48 @@ def cmd_demo(a: argparse.Namespace, rep: Reporter) -> int:
     from ..demo import run_demo
 
     return run_demo(a.dir, a.size, rep, quiet=a.quiet, out=sys.stdout)
+
+
+def cmd_top(a: argparse.Namespace, rep: Reporter) -> int:
+    from ..results.top import top_rows
+    from .format import print_top_rows, write_csv_rows
+
+    rows = top_rows(a.run, a.k, match=a.match, store=a.store)
+    if a.json:
+        print(json.dumps(rows, indent=2))
+    elif a.csv:
+        write_csv_rows(rows, sys.stdout)
+    else:
+        print_top_rows(rows)
+    return 0
+
+
+def cmd_export(a: argparse.Namespace, rep: Reporter) -> int:
+    from ..results.export import export_run
+
+    info = export_run(a.run, a.out, store=a.store, overwrite=a.overwrite)
+    if not a.quiet and a.log_format == "text":
+        extra = f"; {info['escaped_keys']:,} keys prefixed with ' for spreadsheets" if info["escaped_keys"] else ""
+        print(f"{info['path']}: {info['rows']:,} rows ({info['format']}){extra}")
+    return 0
+
+
+def cmd_compare(a: argparse.Namespace, rep: Reporter) -> int:
+    from ..results.compare import compare_runs
+    from .format import print_comparison
+
+    summary = compare_runs(a.run_a, a.run_b, a.k)
+    if a.json:
+        print(json.dumps(summary, indent=2))
+    else:
+        print_comparison(summary)
+    return 0
+
+
+def cmd_report(a: argparse.Namespace, rep: Reporter) -> int:
+    from ..report import write_report
+
+    out = write_report(a.run, a.out, against=a.against, k=a.k, compare_k=a.compare_k, store=a.store)
+    if not a.quiet and a.log_format == "text":
+        print(f"wrote {out}")
+    return 0

@@ -48,3 +48,55 @@ def print_facts(f: dict[str, Any]) -> None:
     w = max(len(k) for k, _ in lines)
     for k, v in lines:
         print(f"{k:<{w}}  {v}")
+
+
+def print_top_rows(rows: list[dict[str, Any]]) -> None:
+    """The table of `shardrank top`: position, score, x N, degrees, key (keys escaped)."""
+    deg = bool(rows) and "in_degree" in rows[0]
+    head = f"{'#':>8}  {'score':>12}  {'x N':>9}"
+    head += f"  {'in':>9}  {'out':>7}" if deg else ""
+    print(head + "  key")
+    for r in rows:
+        line = f"{r['position']:>8,}  {r['score']:12.6e}  {r['score_x_n']:9.2f}"
+        line += f"  {r['in_degree']:>9,}  {r['out_degree']:>7,}" if deg else ""
+        print(f"{line}  {safe_text(r['key'], 100)}")
+    if not rows:
+        print("(no key matches)")
+
+
+def write_csv_rows(rows: list[dict[str, Any]], out: Any) -> None:
+    """Rows as CSV on ``out``, keys made safe for spreadsheets (as `shardrank export` does)."""
+    import csv
+
+    from ..results.export import spreadsheet_safe
+
+    if not rows:
+        out.write("position,key,score,score_x_n,in_degree,out_degree\n")
+        return
+    w = csv.DictWriter(out, fieldnames=list(rows[0]), lineterminator="\n")
+    w.writeheader()
+    for r in rows:
+        w.writerow({**r, "key": spreadsheet_safe(r["key"]), "score": repr(r["score"])})
+
+
+def print_comparison(s: dict[str, Any]) -> None:
+    """The summary of `shardrank compare` for people."""
+    tau, rho = s["kendall_tau"], s["spearman_rho"]
+    ov = "  ".join(f"top {k} {v:.1%}" for k, v in s["overlap"].items())
+    print(f"A: {safe_text(s['a'])} ({s['n_a']:,} keys)")
+    print(f"B: {safe_text(s['b'])} ({s['n_b']:,} keys)")
+    print(f"keys:         {s['common_keys']:,} in both, {s['new_keys']:,} new in B, "
+          f"{s['vanished_keys']:,} vanished from A")
+    print(f"L1 distance:  {s['l1']:.4e} (0 = identical, 2 = disjoint); largest single change {s['max_abs_diff']:.3e}")
+    print(f"overlap:      {ov}")
+    print(f"over the union of both top {s['k']:,} ({s['union_top_k']:,} keys): Kendall tau "
+          f"{'n/a' if tau is None else f'{tau:.4f}'}, Spearman rho {'n/a' if rho is None else f'{rho:.4f}'}")
+    for title, key in (("biggest risers", "risers"), ("biggest fallers", "fallers")):
+        rows = s[key][:10]
+        print(f"{title} (position in A -> B):" if rows else f"{title}: none")
+        for r in rows:
+            d = r["position_a"] - r["position_b"]
+            print(f"  {d:>+9,}  {r['position_a']:>9,} -> {r['position_b']:<9,}  {safe_text(r['key'], 90)}")
+    if s["new_in_top_k"]:
+        print(f"new keys in B's top {s['k']:,}: {len(s['new_in_top_k'])}"
+              f"{'+' if len(s['new_in_top_k']) >= 20 else ''}, e.g. {safe_text(s['new_in_top_k'][0]['key'], 90)}")

@@ -227,12 +227,98 @@ examples:
     _common(p)
 
 
+def _top_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "top", "show the highest scores of a run, by key", """\
+Show the k highest scores of a run with their position (1 = highest; equal scores in key
+order), score, score x N (how many times the uniform share 1/N), in-degree and out-degree.
+With --match, show the highest-scored keys that match a pattern, with their positions in
+the whole run.
+
+examples:
+  shardrank top crawl.run
+  shardrank top crawl.run -k 100 --match 'https://*.example/'
+  shardrank top crawl.run --match miracle-gadget --json
+""", commands.cmd_top)
+    p.add_argument("run", metavar="RUN", help="a run directory made by `shardrank rank`")
+    p.add_argument("-k", type=int, default=settings.TOP_K, metavar="K", help="how many rows")
+    p.add_argument("--match", metavar="PATTERN",
+                   help="only keys matching PATTERN: * any text, ? one character, [abc] one of a set "
+                        "(case-sensitive); without wildcards, keys containing PATTERN")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--json", action="store_true", help="print a JSON list of objects (position, key, score, ...)")
+    g.add_argument("--csv", action="store_true", help="print CSV (keys made safe for spreadsheets, see docs/guide.md)")
+    p.add_argument("--store", metavar="STORE", help="the run's store, if it moved (degrees are read from it)")
+    _common(p)
+
+
+def _export_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "export", "write a run's scores by key to Parquet or CSV", """\
+Write every node of a run as one table, highest score first: position (1 = highest; equal
+scores in key order), key, score, in_degree, out_degree. The file name picks the format:
+.parquet, .csv or .csv.gz.
+
+CSV is safe to open in a spreadsheet: a key that begins with = + - @, a tab or a carriage
+return (or an apostrophe) gets one apostrophe in front so it cannot run as a formula; drop a
+leading apostrophe to recover the key. Parquet keeps the exact keys.
+
+examples:
+  shardrank export crawl.run --out scores.parquet
+  duckdb -c "SELECT * FROM 'scores.parquet' WHERE key LIKE '%.example/%' LIMIT 10"
+""", commands.cmd_export)
+    p.add_argument("run", metavar="RUN", help="a run directory made by `shardrank rank`")
+    p.add_argument("--out", required=True, metavar="FILE", help="the file to write (.parquet, .csv or .csv.gz)")
+    p.add_argument("--store", metavar="STORE", help="the run's store, if it moved (degrees are read from it)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing FILE")
+    _common(p)
+
+
+def _compare_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "compare", "what changed between two runs, joined by key", """\
+Join two runs by key and measure how far apart they are: the L1 distance of the score
+vectors (a key one run lacks counts as 0 there; at most 2), Kendall tau and Spearman rho of
+the scores over the union of both top-k, the share of the top 10, 100 and 1000 that both
+runs share, the keys that rose and fell most within that union, and how many keys are new
+in RUN_B or vanished from RUN_A. Memory stays bounded: DuckDB does the join on disk.
+
+examples:
+  shardrank compare last-night.run tonight.run
+  shardrank compare last-night.run tonight.run -k 100 --json | jq .overlap
+""", commands.cmd_compare)
+    p.add_argument("run_a", metavar="RUN_A", help="the earlier (baseline) run")
+    p.add_argument("run_b", metavar="RUN_B", help="the later run")
+    p.add_argument("-k", type=int, default=settings.COMPARE_K, metavar="K",
+                   help="top-k whose union feeds the rank correlations and the risers and fallers")
+    p.add_argument("--json", action="store_true", help="print the whole comparison as one JSON object")
+    _common(p)
+
+
+def _report_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "report", "write a one-file HTML report of a run", """\
+Write one self-contained HTML file (plots inline, no network, no scripts) that reads well on
+a phone and prints cleanly: graph facts, run options, convergence, the score distribution,
+the top keys, and with --against a comparison with a baseline run including a plot of each
+key's position in both runs.
+
+examples:
+  shardrank report crawl.run --out crawl.html
+  shardrank report tonight.run --against last-night.run --out tonight.html
+""", commands.cmd_report)
+    p.add_argument("run", metavar="RUN", help="a run directory made by `shardrank rank`")
+    p.add_argument("--out", required=True, metavar="FILE", help="the HTML file to write")
+    p.add_argument("--against", metavar="RUN_B", help="a baseline run to compare with, by key")
+    p.add_argument("-k", type=int, default=settings.TOP_K, metavar="K", help="rows of the top table")
+    p.add_argument("--compare-k", type=int, default=settings.COMPARE_K, metavar="K",
+                   help="with --against: the top-k whose union is compared")
+    p.add_argument("--store", metavar="STORE", help="the run's store, if it moved")
+    _common(p)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="shardrank", description=DESCRIPTION, formatter_class=_Fmt, epilog=EXIT_TABLE)
     from .. import __version__
 
     p.add_argument("--version", action="version", version=f"shardrank {__version__}")
     sp = p.add_subparsers(title="commands", metavar="COMMAND")
-    for add in (_demo_cmd, _build_cmd, _inspect_cmd, _verify_cmd, _rank_cmd, _resume_cmd, _refresh_cmd):
+    for add in (_demo_cmd, _build_cmd, _inspect_cmd, _verify_cmd, _rank_cmd, _resume_cmd, _refresh_cmd, _top_cmd, _export_cmd, _compare_cmd, _report_cmd):
         add(sp)
     return p
