@@ -78,6 +78,31 @@ class StoreManifest:
         return {k: d[k] for k in order}
 
 
+SELF_CHECKSUM = "manifest_sha256"
+
+
+def content_sha256(doc: dict[str, Any]) -> str:
+    """sha256 of a manifest's contents without its own checksum field (canonical JSON).
+
+    The fingerprint covers only what defines the graph; this covers every field (counts,
+    options, input, creation time), so no edit of manifest.json goes unnoticed.
+    """
+    body = {k: v for k, v in doc.items() if k != SELF_CHECKSUM}
+    return hashlib.sha256(json.dumps(body, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
+
+
+def encode_manifest(m: StoreManifest) -> bytes:
+    """The exact bytes of manifest.json: indented JSON with its own checksum after the fingerprint."""
+    doc = m.to_json()
+    digest = content_sha256(doc)
+    out: dict[str, Any] = {}
+    for k, v in doc.items():
+        out[k] = v
+        if k == "fingerprint":
+            out[SELF_CHECKSUM] = digest
+    return (json.dumps(out, indent=2) + "\n").encode()
+
+
 def _damaged(path: Path, what: str) -> DamagedDataError:
     return DamagedDataError(
         f"{path}: {what}",
@@ -151,6 +176,8 @@ def parse_manifest(d: Any, path: Path) -> StoreManifest:
     if not isinstance(d, dict):
         raise _damaged(path, "manifest is not a JSON object")
     parse_format(d, path)
+    if d.get(SELF_CHECKSUM) != content_sha256(d):
+        raise _damaged(path, "checksum mismatch (the manifest's contents changed since it was written)")
     n_nodes = _int(d, "n_nodes", path, 1)
     n_edges = _int(d, "n_edges", path)
     key_type = d.get("key_type")
@@ -193,8 +220,13 @@ def read_manifest(store: Path) -> StoreManifest:
             "never leaves a manifest",
             hint="build it again with `shardrank build ... --out STORE --overwrite`",
         )
+    raw = path.read_bytes()
     try:
-        d = json.loads(path.read_bytes())
+        d = json.loads(raw)
     except (ValueError, UnicodeDecodeError) as e:
         raise _damaged(path, f"manifest is not valid JSON ({e})") from None
-    return parse_manifest(d, path)
+    m = parse_manifest(d, path)
+    # the checksum covers the contents; this covers the bytes (whitespace, escapes) as written
+    if raw != (json.dumps(d, indent=2) + "\n").encode():
+        raise _damaged(path, "the file's bytes differ from what shardrank wrote (formatting changed)")
+    return m

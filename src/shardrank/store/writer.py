@@ -14,8 +14,8 @@ from typing import IO, Any
 import numpy as np
 
 from . import layout
-from .atomic import HashingWriter, npy_header, publish_dir, sha256_file, write_json_atomic, write_npy_atomic
-from .manifest import BlockInfo, FileInfo, StoreManifest
+from .atomic import HashingWriter, npy_header, publish_dir, sha256_file, write_bytes_atomic, write_npy_atomic
+from .manifest import BlockInfo, FileInfo, StoreManifest, encode_manifest
 
 
 class _StreamFile:
@@ -136,7 +136,7 @@ class StoreWriter:
             created=datetime.now(UTC).isoformat(timespec="seconds"),
         )
         m.fingerprint = m.compute_fingerprint()
-        write_json_atomic(self.tmp / layout.MANIFEST, m.to_json())
+        write_bytes_atomic(self.tmp / layout.MANIFEST, encode_manifest(m))
         return m
 
     def publish(self, final: Path, overwrite: bool) -> None:
