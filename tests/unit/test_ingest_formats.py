@@ -167,3 +167,15 @@ def test_default_columns_are_the_first_two(tmp_path: Path) -> None:
     f = tmp_path / "e.parquet"
     pq.write_table(pa.table({"a": INT_SRC, "b": INT_DST, "c": [1.0] * len(INT_SRC)}), f)
     assert_store_matches(_build(tmp_path, [f]), INT_SRC, INT_DST)
+
+
+def test_parquet_parts_with_int32_and_int64_keys(tmp_path: Path) -> None:
+    # both are integer keys: one key space, numeric order
+    d = tmp_path / "edges"
+    d.mkdir()
+    half = len(INT_SRC) // 2
+    pq.write_table(pa.table({"src": pa.array(INT_SRC[:half], pa.int32()), "dst": pa.array(INT_DST[:half], pa.int32())}),
+                   d / "part-0.parquet")
+    pq.write_table(pa.table({"src": pa.array(INT_SRC[half:], pa.int64()), "dst": pa.array(INT_DST[half:], pa.int64())}),
+                   d / "part-1.parquet")
+    assert_store_matches(_build(tmp_path, [d]), INT_SRC, INT_DST)

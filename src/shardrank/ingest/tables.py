@@ -192,8 +192,11 @@ def choose_columns(
 def check_same_key_types(
     con: duckdb.DuckDBPyConnection, files: list[InputFile], cols: Columns
 ) -> None:
-    """Every Parquet file must agree on the key type (cheap: reads footers only)."""
-    first: tuple[str, str] | None = None
+    """Every Parquet file must agree on the key type (cheap: reads footers only).
+
+    The error names two files that disagree, so the user knows where to look.
+    """
+    seen: dict[str, tuple[str, str]] = {}  # key class -> (first file with it, its DuckDB type)
     for f in files:
         if f.kind != "parquet":
             continue
@@ -204,16 +207,22 @@ def check_same_key_types(
                     f"{f.path} has no column '{col}' (found: {', '.join(schema)})",
                     hint="all edge files must share the key columns",
                 )
-            k = key_class(schema[col])
-            if k != cols.key_type:
-                other = first[0] if first else "the other files"
+            k = key_class(schema[col]) or schema[col]
+            if seen and k not in seen:
+                other, other_type = next(iter(seen.values()))
                 raise BadInputError(
                     f"keys of mixed types: column '{col}' is {schema[col]} in {f.path} but "
-                    f"{cols.key_type} in {other}",
+                    f"{other_type} in {other}",
                     hint="make every file's key columns the same type (all integers or all strings)",
                 )
-        if first is None:
-            first = (str(f.path), cols.key_type)
+            seen.setdefault(k, (str(f.path), schema[col]))
+    if seen and cols.key_type not in seen:  # the text inputs hold keys of the other type
+        other, other_type = next(iter(seen.values()))
+        raise BadInputError(
+            f"keys of mixed types: {other} has {other_type} keys but the text edge files hold "
+            f"{'integer' if cols.key_type == 'int64' else 'text'} keys",
+            hint="make every file's key columns the same type (all integers or all strings)",
+        )
 
 
 def arrow_reader(con: duckdb.DuckDBPyConnection, sql: str, batch_rows: int):  # type: ignore[no-untyped-def]
