@@ -7,20 +7,32 @@ from __future__ import annotations
 import hashlib
 import os
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import duckdb
 
+from ..errors import BadInputError
 from ..ingest.build import BuildOptions
 from ..ingest.sources import fingerprint_inputs, resolve_inputs
-from ..ingest.tables import choose_columns, describe, sniff_text
+from ..ingest.tables import Columns, choose_columns, describe, sniff_text
 from ..solve.options import RankOptions
 from ..solve.tables import load_teleport
+from ..store.manifest import StoreManifest
 from ..store.reader import StoreReader
 
 
-def input_fingerprint(edges: Sequence[str | os.PathLike[str]], o: BuildOptions) -> str:
-    """``input["fingerprint"]`` of the store that ``build_store(edges, ..., o)`` would write.
+@dataclass(frozen=True)
+class Snapshot:
+    """What refresh learns about tonight's inputs before building."""
+
+    fingerprint: str  # equals the built store's manifest ``input["fingerprint"]``
+    columns: Columns
+    where: str  # how to name the inputs in a message
+
+
+def input_fingerprint(edges: Sequence[str | os.PathLike[str]], o: BuildOptions) -> Snapshot:
+    """The ``input["fingerprint"]`` that ``build_store(edges, ..., o)`` would record, and the columns.
 
     Mirrors ingest/build.py: the resolved column names plus the options that shape the store
     (a test checks that the two agree). Reads every input byte once (sha256).
@@ -44,7 +56,29 @@ def input_fingerprint(edges: Sequence[str | os.PathLike[str]], o: BuildOptions) 
         "drop_nulls": o.drop_nulls,
         "block_nodes": o.block_nodes,
     }
-    return str(fingerprint_inputs(files + node_files, fp_opts)["fingerprint"])
+    return Snapshot(
+        str(fingerprint_inputs(files + node_files, fp_opts)["fingerprint"]), cols, where
+    )
+
+
+def check_same_schema(snap: Snapshot, o: BuildOptions, before: StoreManifest) -> None:
+    """Refuse a snapshot whose key type, or (when the columns are found by default) whose key
+    columns, differ from the published run's store: a renamed column would otherwise be taken
+    for another silently, and keys of another type cannot be matched for the warm start."""
+    c = snap.columns
+    if c.key_type != before.key_type:
+        raise BadInputError(
+            f"{snap.where}: keys are {c.key_type} but the published run's keys are {before.key_type}",
+            hint="fix the export; to start over with the new key type, use a new --home",
+        )
+    if o.src is None and o.dst is None:
+        was = (before.options.get("src"), before.options.get("dst"))
+        if (c.src, c.dst) != was:
+            raise BadInputError(
+                f"{snap.where}: the key columns would be '{c.src}', '{c.dst}' but the published run "
+                f"read '{was[0]}', '{was[1]}' (has the export's schema changed?)",
+                hint="if the new columns are right, name them with --src and --dst",
+            )
 
 
 def teleport_hash(store: Path, o: RankOptions) -> str:

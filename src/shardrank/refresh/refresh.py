@@ -49,7 +49,7 @@ from ..store.atomic import write_json_atomic
 from ..store.manifest import StoreManifest, read_manifest
 from . import generations as gens
 from .checks import check_guards, cold_estimate, compare_with_previous, validate_run
-from .fingerprint import input_fingerprint, teleport_hash
+from .fingerprint import check_same_schema, input_fingerprint, teleport_hash
 from .hooks import PausePoint, PausingReporter
 from .lock import HomeLock
 from .publish import publish, published_run
@@ -253,8 +253,11 @@ def _refresh_locked(
         rep.event("cleanup", f"removed {name}, left by an interrupted refresh")
     with clock.phase("fingerprint"):
         rep.event("phase", "fingerprinting the snapshot...", phase="fingerprint")
-        fp = input_fingerprint(edges, o.build)
+        snap = input_fingerprint(edges, o.build)
+    fp = snap.fingerprint
     published = published_run(home)
+    if published is not None and (pstore := gens.store_of_run(home, published)) is not None:
+        check_same_schema(snap, o.build, read_manifest(pstore))
     plan = _plan(home, fp, o, published)
     if plan.note:
         rep.event("plan", plan.note)
