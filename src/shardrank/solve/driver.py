@@ -14,8 +14,11 @@ power step when the sweep change suggests the tolerance is reached.
 
 from __future__ import annotations
 
+import signal
+import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 
 import numpy as np
 
@@ -44,11 +47,43 @@ def check_invariants(r: np.ndarray, iteration: int) -> float:
     return total
 
 
+@contextmanager
+def _ctrl_c_between_steps() -> Iterator[Callable[[], bool]]:
+    """Hold Ctrl-C (SIGINT) to the end of the current iteration; yield "was it pressed?".
+
+    A step updates ``r`` in place, block by block: a KeyboardInterrupt in the middle would
+    leave it half updated, and the checkpoint written on the way out would then be no iterate
+    at all (the resumed run would differ from an uninterrupted one). Only in the main thread
+    with Python's own SIGINT handler; elsewhere Ctrl-C acts at once as usual.
+    """
+    held: list[int] = []
+    if (threading.current_thread() is not threading.main_thread()
+            or signal.getsignal(signal.SIGINT) is not signal.default_int_handler):
+        yield lambda: False
+        return
+    signal.signal(signal.SIGINT, lambda signum, frame: held.append(signum))
+    try:
+        yield lambda: bool(held)
+    finally:
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
 def iterate(
     engine: Engine, r: np.ndarray, state: IterState, opts: RankOptions, rep: Reporter,
     checkpoint: CheckpointHook | None = None,
 ) -> IterState:
-    """Run steps until the guaranteed bound is <= tol or max_iter; ``r`` is updated in place."""
+    """Run steps until the guaranteed bound is <= tol or max_iter; ``r`` is updated in place.
+
+    Ctrl-C raises KeyboardInterrupt at the end of an iteration, when ``r`` and ``state`` agree.
+    """
+    with _ctrl_c_between_steps() as interrupted:
+        return _iterate(engine, r, state, opts, rep, checkpoint, interrupted)
+
+
+def _iterate(
+    engine: Engine, r: np.ndarray, state: IterState, opts: RankOptions, rep: Reporter,
+    checkpoint: CheckpointHook | None, interrupted: Callable[[], bool],
+) -> IterState:
     d, tol = opts.damping, opts.tol
     gain = d / (1.0 - d)
     if state.verify_threshold == 0.0:
@@ -94,4 +129,6 @@ def iterate(
         if checkpoint and due and not state.converged:
             checkpoint(r, state)
             last_ckpt = time.monotonic()
+        if interrupted():
+            raise KeyboardInterrupt
     return state
