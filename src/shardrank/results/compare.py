@@ -94,8 +94,8 @@ def _finite_or_none(x: float) -> float | None:
 
 def _correlations(sa: list[float], sb: list[float]) -> tuple[float | None, float | None]:
     """Kendall tau-b and Spearman rho (scipy.stats); None where undefined (< 2 rows, constant)."""
-    if len(sa) < 2:
-        return None, None
+    if len(sa) < 2 or min(sa) == max(sa) or min(sb) == max(sb):
+        return None, None  # a constant side has no ranking to correlate
     tau = stats.kendalltau(sa, sb).statistic
     rho = stats.spearmanr(sa, sb).statistic
     return _finite_or_none(float(tau)), _finite_or_none(float(rho))
