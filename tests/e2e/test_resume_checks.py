@@ -27,7 +27,9 @@ class StopAt(Reporter):
     def __init__(self, k: int) -> None:
         self.k = k
 
-    def progress(self, phase: str, done: float, total: float | None, unit: str = "", **fields: Any) -> None:
+    def progress(
+        self, phase: str, done: float, total: float | None, unit: str = "", **fields: Any
+    ) -> None:
         if phase == "ranking" and done == self.k:
             raise KeyboardInterrupt
 
@@ -41,7 +43,9 @@ def template(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
     tmp = tmp_path_factory.mktemp("resume")
     rng = np.random.default_rng(31)
     src, dst = random_graph(rng, 2000, 8000)
-    f = write_edges(tmp / "edges.parquet", src.tolist(), dst.tolist(), rng.uniform(0.5, 2.0, src.size).tolist())
+    f = write_edges(
+        tmp / "edges.parquet", src.tolist(), dst.tolist(), rng.uniform(0.5, 2.0, src.size).tolist()
+    )
     store = tmp / "store"
     shardrank.build_store([f], store, shardrank.BuildOptions(weight="w", block_nodes=500))
     tele = write_teleport(tmp / "t.parquet", src[:40].tolist(), [1.0] * 40)
@@ -53,8 +57,13 @@ def template(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
         shardrank.rank(store, run, RankOptions(**opts), StopAt(6))  # type: ignore[arg-type]
     ckpts = sorted(p.name for p in (run / "checkpoints").iterdir())
     assert ckpts == ["iter-000005", "iter-000006"]
-    return {"store": store, "run": run, "tele": tele, "ref": (tmp / "ref" / "scores.npy").read_bytes(),
-            "edges": f}
+    return {
+        "store": store,
+        "run": run,
+        "tele": tele,
+        "ref": (tmp / "ref" / "scores.npy").read_bytes(),
+        "edges": f,
+    }
 
 
 @pytest.fixture
@@ -71,14 +80,17 @@ def _flip_byte(path: Path, offset: int = -9) -> None:
     path.write_bytes(bytes(data))
 
 
-def test_resume_continues_bitwise(stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+def test_resume_continues_bitwise(
+    stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]
+) -> None:
     assert main(["resume", str(stopped["run"]), "--threads", "1"]) == 0
     assert "resuming at iteration 6" in capsys.readouterr().err
     assert (stopped["run"] / "scores.npy").read_bytes() == stopped["ref"]
 
 
-def test_damaged_newest_checkpoint_falls_back_to_the_older(stopped: dict[str, Any],
-                                                           capsys: pytest.CaptureFixture[str]) -> None:
+def test_damaged_newest_checkpoint_falls_back_to_the_older(
+    stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]
+) -> None:
     _flip_byte(stopped["run"] / "checkpoints" / "iter-000006" / "scores.npy")
     assert main(["resume", str(stopped["run"]), "--threads", "1"]) == 0
     err = capsys.readouterr().err
@@ -86,7 +98,9 @@ def test_damaged_newest_checkpoint_falls_back_to_the_older(stopped: dict[str, An
     assert (stopped["run"] / "scores.npy").read_bytes() == stopped["ref"]
 
 
-def test_both_checkpoints_damaged_starts_over(stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+def test_both_checkpoints_damaged_starts_over(
+    stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]
+) -> None:
     _flip_byte(stopped["run"] / "checkpoints" / "iter-000006" / "scores.npy", offset=200)
     state = stopped["run"] / "checkpoints" / "iter-000005" / "state.json"
     state.write_text(state.read_text()[:40])  # torn JSON
@@ -96,12 +110,19 @@ def test_both_checkpoints_damaged_starts_over(stopped: dict[str, Any], capsys: p
     assert (stopped["run"] / "scores.npy").read_bytes() == stopped["ref"]
 
 
-@pytest.mark.parametrize("flag, value, name", [("--damping", "0.9", "damping"), ("--tol", "1e-6", "tol"),
-                                               ("--method", "power", "method"),
-                                               ("--dead-ends", "uniform", "dead_ends"),
-                                               ("--max-iter", "50", "max_iter")])
-def test_resume_refuses_other_options(stopped: dict[str, Any], capsys: pytest.CaptureFixture[str],
-                                      flag: str, value: str, name: str) -> None:
+@pytest.mark.parametrize(
+    "flag, value, name",
+    [
+        ("--damping", "0.9", "damping"),
+        ("--tol", "1e-6", "tol"),
+        ("--method", "power", "method"),
+        ("--dead-ends", "uniform", "dead_ends"),
+        ("--max-iter", "50", "max_iter"),
+    ],
+)
+def test_resume_refuses_other_options(
+    stopped: dict[str, Any], capsys: pytest.CaptureFixture[str], flag: str, value: str, name: str
+) -> None:
     assert main(["resume", str(stopped["run"]), flag, value]) == 2
     err = capsys.readouterr().err
     assert "error:" in err and "options differ" in err and name in err and "hint:" in err
@@ -114,21 +135,25 @@ def test_resume_accepts_the_runs_own_options(stopped: dict[str, Any]) -> None:
     assert (stopped["run"] / "scores.npy").read_bytes() == stopped["ref"]
 
 
-def test_resume_refuses_a_changed_store(stopped: dict[str, Any], tmp_path: Path,
-                                        capsys: pytest.CaptureFixture[str]) -> None:
+def test_resume_refuses_a_changed_store(
+    stopped: dict[str, Any], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     # the same edges with one more row: another fingerprint
     from tests.conftest import write_edges
 
     other = tmp_path / "other"
     f = write_edges(tmp_path / "e.parquet", [1, 2, 3], [2, 3, 1], [1.0, 1.0, 1.0])
-    shardrank.build_store([stopped["edges"], f], other, shardrank.BuildOptions(weight="w", block_nodes=500))
+    shardrank.build_store(
+        [stopped["edges"], f], other, shardrank.BuildOptions(weight="w", block_nodes=500)
+    )
     assert main(["resume", str(stopped["run"]), "--store", str(other)]) == 2
     err = capsys.readouterr().err
     assert "store changed" in err and "hint:" in err
 
 
-def test_resume_refuses_a_damaged_store(stopped: dict[str, Any], tmp_path: Path,
-                                        capsys: pytest.CaptureFixture[str]) -> None:
+def test_resume_refuses_a_damaged_store(
+    stopped: dict[str, Any], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     copy = tmp_path / "store"
     shutil.copytree(stopped["store"], copy)
     shard = sorted(p for p in copy.rglob("*.npy") if "offsets" not in p.name)[-1]
@@ -137,7 +162,9 @@ def test_resume_refuses_a_damaged_store(stopped: dict[str, Any], tmp_path: Path,
     assert "error:" in capsys.readouterr().err
 
 
-def test_resume_refuses_a_changed_teleport_table(stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+def test_resume_refuses_a_changed_teleport_table(
+    stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]
+) -> None:
     original = stopped["tele"].read_bytes()
     try:
         write_teleport(stopped["tele"], [1, 2], [1.0, 3.0])
@@ -147,7 +174,9 @@ def test_resume_refuses_a_changed_teleport_table(stopped: dict[str, Any], capsys
     assert "teleport table changed" in capsys.readouterr().err
 
 
-def test_resume_refuses_a_finished_run(stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+def test_resume_refuses_a_finished_run(
+    stopped: dict[str, Any], capsys: pytest.CaptureFixture[str]
+) -> None:
     assert main(["resume", str(stopped["run"]), "--threads", "1"]) == 0
     capsys.readouterr()
     assert main(["resume", str(stopped["run"])]) == 2

@@ -48,8 +48,12 @@ def reference(big_store: Path, tmp_path_factory: pytest.TempPathFactory) -> dict
     tmp = tmp_path_factory.mktemp("ref")
     out = {}
     for method in ("gauss-seidel", "power"):
-        res = shardrank.rank(big_store, tmp / method, RankOptions(method=method, tol=float(TOL), threads=1))
-        assert res.converged and res.iterations >= 12, res.iterations  # enough room for the kill points
+        res = shardrank.rank(
+            big_store, tmp / method, RankOptions(method=method, tol=float(TOL), threads=1)
+        )
+        assert res.converged and res.iterations >= 12, (
+            res.iterations
+        )  # enough room for the kill points
         out[method] = (tmp / method / "scores.npy").read_bytes()
     return out
 
@@ -59,7 +63,10 @@ def _wait_for_checkpoint(p: subprocess.Popen[str], run: Path, iteration: int) ->
     deadline = time.monotonic() + 120
     while not marker.exists():
         if p.poll() is not None:
-            pytest.fail(f"the process ended (exit {p.returncode}) before checkpoint {iteration}: {p.stderr.read()}")
+            pytest.fail(
+                f"the process ended (exit {p.returncode}) before checkpoint {iteration}: "
+                f"{p.stderr.read()}"
+            )
         if time.monotonic() > deadline:
             p.kill()
             pytest.fail(f"no checkpoint {iteration} after 120 s")
@@ -67,8 +74,12 @@ def _wait_for_checkpoint(p: subprocess.Popen[str], run: Path, iteration: int) ->
 
 
 def _start(args: list[str]) -> subprocess.Popen[str]:
-    return subprocess.Popen([CLI, *args, "--threads", "1", "-q"], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True)
+    return subprocess.Popen(
+        [CLI, *args, "--threads", "1", "-q"],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
 
 
 def _kill_at(p: subprocess.Popen[str], run: Path, iteration: int, delay: float, sig: int) -> None:
@@ -80,11 +91,14 @@ def _kill_at(p: subprocess.Popen[str], run: Path, iteration: int, delay: float, 
 
 
 def _resume(run: Path) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([CLI, "resume", str(run), "--threads", "1", "-q"], capture_output=True, text=True)
+    return subprocess.run(
+        [CLI, "resume", str(run), "--threads", "1", "-q"], capture_output=True, text=True
+    )
 
 
-def test_killed_three_times_then_resumed_is_bitwise_equal(big_store: Path, reference: dict[str, bytes],
-                                                          tmp_path: Path) -> None:
+def test_killed_three_times_then_resumed_is_bitwise_equal(
+    big_store: Path, reference: dict[str, bytes], tmp_path: Path
+) -> None:
     run = tmp_path / "run"
     p = _start(["rank", str(big_store), "--out", str(run), "--checkpoint-every", "1", "--tol", TOL])
     _kill_at(p, run, 1, 0.0, signal.SIGKILL)  # right after the first checkpoint
@@ -100,18 +114,33 @@ def test_killed_three_times_then_resumed_is_bitwise_equal(big_store: Path, refer
     assert not (run / "checkpoints").exists()
 
 
-def test_power_method_killed_and_resumed_is_bitwise_equal(big_store: Path, reference: dict[str, bytes],
-                                                          tmp_path: Path) -> None:
+def test_power_method_killed_and_resumed_is_bitwise_equal(
+    big_store: Path, reference: dict[str, bytes], tmp_path: Path
+) -> None:
     run = tmp_path / "run"
-    p = _start(["rank", str(big_store), "--out", str(run), "--method", "power", "--checkpoint-every", "1",
-                "--tol", TOL])
+    p = _start(
+        [
+            "rank",
+            str(big_store),
+            "--out",
+            str(run),
+            "--method",
+            "power",
+            "--checkpoint-every",
+            "1",
+            "--tol",
+            TOL,
+        ]
+    )
     _kill_at(p, run, 7, 0.02, signal.SIGKILL)
     done = _resume(run)
     assert done.returncode == 0, done.stderr
     assert (run / "scores.npy").read_bytes() == reference["power"]
 
 
-def test_ctrl_c_then_resume_is_bitwise_equal(big_store: Path, reference: dict[str, bytes], tmp_path: Path) -> None:
+def test_ctrl_c_then_resume_is_bitwise_equal(
+    big_store: Path, reference: dict[str, bytes], tmp_path: Path
+) -> None:
     """SIGINT (Ctrl-C) in the middle of an iteration: the run finishes that iteration, writes a
     consistent checkpoint (before the fix it saved a half-updated score vector, and the resumed
     run differed) and exits 130. tests/unit/test_solve_driver.py pins the exact moment."""

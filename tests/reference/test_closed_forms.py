@@ -67,7 +67,8 @@ def test_dead_end_graph_solved_by_hand(build, tmp_path: Path, method: str) -> No
     # (r_C + 1) / 6; A's two out-links carry r_A / 2 each, B's one carries r_B:
     #   r_A = (r_C + 1) / 6
     #   r_B = 1/2 * r_A / 2 + (r_C + 1) / 6           = 5 (r_C + 1) / 24
-    #   r_C = 1/2 * (r_A / 2 + r_B) + (r_C + 1) / 6   = (2 + 5 + 8) (r_C + 1) / 48 = 5 (r_C + 1) / 16
+    #   r_C = 1/2 * (r_A / 2 + r_B) + (r_C + 1) / 6   = (2 + 5 + 8) (r_C + 1) / 48
+    #                                                 = 5 (r_C + 1) / 16
     # so 16 r_C = 5 r_C + 5, r_C = 5/11, r_C + 1 = 16/11, and
     #   r = (8/33, 10/33, 15/33)   (sums to 1; both dead-end policies agree: v is uniform)
     expected = [Fraction(8, 33), Fraction(10, 33), Fraction(15, 33)]
@@ -91,8 +92,12 @@ def test_dead_end_policies_solved_by_hand(build, tmp_path: Path, method: str) ->
     d = 0.85
     store = build(["A"], ["B"])
     tele = write_teleport(tmp_path / "seed.parquet", ["A"], [3.0])
-    strong = _rank(store, tmp_path / "t", method=method, damping=d, teleport=str(tele), dead_ends="teleport")
-    weak = _rank(store, tmp_path / "u", method=method, damping=d, teleport=str(tele), dead_ends="uniform")
+    strong = _rank(
+        store, tmp_path / "t", method=method, damping=d, teleport=str(tele), dead_ends="teleport"
+    )
+    weak = _rank(
+        store, tmp_path / "u", method=method, damping=d, teleport=str(tele), dead_ends="uniform"
+    )
     assert np.max(np.abs(strong.scores - [1 / (1 + d), d / (1 + d)])) <= 1e-13
     assert np.max(np.abs(weak.scores - [(2 - d) / (2 + d), 2 * d / (2 + d)])) <= 1e-13
 

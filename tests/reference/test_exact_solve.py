@@ -38,8 +38,15 @@ def node_ids(keys: np.ndarray, *cols: np.ndarray) -> list[np.ndarray]:
     return [np.searchsorted(keys, c) for c in cols]
 
 
-def exact_pagerank(src: np.ndarray, dst: np.ndarray, weight: np.ndarray | None, n: int, damping: float,
-                   teleport: np.ndarray | None = None, dead_ends: str = "teleport") -> np.ndarray:
+def exact_pagerank(
+    src: np.ndarray,
+    dst: np.ndarray,
+    weight: np.ndarray | None,
+    n: int,
+    damping: float,
+    teleport: np.ndarray | None = None,
+    dead_ends: str = "teleport",
+) -> np.ndarray:
     """PageRank by a direct sparse solve (scipy); duplicates are merged by summing their weights.
 
     ``src``/``dst`` are ids 0..n-1; ``teleport`` float64[n] summing to 1 (None: uniform).
@@ -99,7 +106,10 @@ def weighted_graph(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
     tele = write_teleport(tmp / "teleport.parquet", t_keys.tolist(), t_w.tolist())
     s_id, d_id = node_ids(keys, src, dst)
     v = dense_teleport(keys, t_keys, t_w)
-    exact = {pol: exact_pagerank(s_id, d_id, w, keys.size, 0.85, v, pol) for pol in ("teleport", "uniform")}
+    exact = {
+        pol: exact_pagerank(s_id, d_id, w, keys.size, 0.85, v, pol)
+        for pol in ("teleport", "uniform")
+    }
     return {"store": store, "teleport": str(tele), "exact": exact, "n": keys.size, "tmp": tmp}
 
 
@@ -107,10 +117,14 @@ def weighted_graph(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
 @pytest.mark.parametrize("method", ["power", "gauss-seidel"])
 @pytest.mark.parametrize("tol", [1e-6, 1e-9, 1e-12])
 def test_l1_error_is_within_tol_and_within_the_recorded_bound(
-        weighted_graph: dict[str, Any], tmp_path: Path, method: str, tol: float, dead_ends: str) -> None:
+    weighted_graph: dict[str, Any], tmp_path: Path, method: str, tol: float, dead_ends: str
+) -> None:
     g = weighted_graph
-    res = shardrank.rank(g["store"], tmp_path / "run", RankOptions(
-        method=method, tol=tol, dead_ends=dead_ends, teleport=g["teleport"], threads=1))
+    res = shardrank.rank(
+        g["store"],
+        tmp_path / "run",
+        RankOptions(method=method, tol=tol, dead_ends=dead_ends, teleport=g["teleport"], threads=1),
+    )
     true_err = float(np.abs(res.scores - g["exact"][dead_ends]).sum())
     assert res.converged
     # scipy direct solve: the promised bound holds ...
@@ -121,10 +135,15 @@ def test_l1_error_is_within_tol_and_within_the_recorded_bound(
 
 
 @pytest.mark.parametrize("method", ["power", "gauss-seidel"])
-def test_a_stopped_run_still_records_a_true_bound(weighted_graph: dict[str, Any], tmp_path: Path, method: str) -> None:
+def test_a_stopped_run_still_records_a_true_bound(
+    weighted_graph: dict[str, Any], tmp_path: Path, method: str
+) -> None:
     g = weighted_graph
-    res = shardrank.rank(g["store"], tmp_path / "run", RankOptions(
-        method=method, tol=1e-12, max_iter=6, teleport=g["teleport"], threads=1))
+    res = shardrank.rank(
+        g["store"],
+        tmp_path / "run",
+        RankOptions(method=method, tol=1e-12, max_iter=6, teleport=g["teleport"], threads=1),
+    )
     true_err = float(np.abs(res.scores - g["exact"]["teleport"]).sum())
     assert not res.converged and np.isfinite(res.error_bound)
     # scipy direct solve: the bound of a run cut short at --max-iter is still an upper bound
@@ -145,7 +164,10 @@ def test_damping_099_reaches_the_exact_answer(tmp_path: Path) -> None:
     s_id, d_id = node_ids(keys, src, dst)
     ref = exact_pagerank(s_id, d_id, None, keys.size, 0.99)
     for method in ("power", "gauss-seidel"):
-        res = shardrank.rank(store, tmp_path / method, RankOptions(
-            damping=0.99, tol=1e-9, method=method, max_iter=5000, threads=1))
+        res = shardrank.rank(
+            store,
+            tmp_path / method,
+            RankOptions(damping=0.99, tol=1e-9, method=method, max_iter=5000, threads=1),
+        )
         # scipy direct solve
         assert res.converged and float(np.abs(res.scores - ref).sum()) <= 1e-9

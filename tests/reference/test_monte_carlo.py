@@ -39,8 +39,13 @@ TELEPORT_KEYS = [0, 4, 6]
 TELEPORT_W = [2.0, 1.0, 1.0]
 
 
-def simulate(n: int, v: np.ndarray, u: np.ndarray, seed: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """N_RUNS random surfers, vectorised: (end page per run, visits per run and page, length per run)."""
+def simulate(
+    n: int, v: np.ndarray, u: np.ndarray, seed: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """N_RUNS random surfers, vectorised.
+
+    Returns (end page per run, visits per run and page, length per run).
+    """
     rng = np.random.default_rng(seed)
     src, dst, w = np.array(SRC), np.array(DST), np.array(W)
     order = np.argsort(src, kind="stable")  # out-links grouped by source, for weighted choice
@@ -49,7 +54,9 @@ def simulate(n: int, v: np.ndarray, u: np.ndarray, seed: int) -> tuple[np.ndarra
     w_out = np.bincount(src, weights=w, minlength=n)
     first = np.searchsorted(src, np.arange(n))  # first out-link of each page
     last = np.searchsorted(src, np.arange(n), side="right") - 1
-    before = np.where(first > 0, cum[np.maximum(first - 1, 0)], 0.0)  # weight of earlier pages' links
+    before = np.where(
+        first > 0, cum[np.maximum(first - 1, 0)], 0.0
+    )  # weight of earlier pages' links
     pos = rng.choice(n, size=N_RUNS, p=v)
     alive = np.ones(N_RUNS, dtype=bool)
     ends = np.full(N_RUNS, -1)
@@ -76,8 +83,11 @@ def simulate(n: int, v: np.ndarray, u: np.ndarray, seed: int) -> tuple[np.ndarra
 def test_random_surfers_agree_with_the_scores(build, tmp_path: Path, dead_ends: str) -> None:
     store = build(SRC, DST, W, block_nodes=3)
     tele = write_teleport(tmp_path / "t.parquet", TELEPORT_KEYS, TELEPORT_W)
-    res = shardrank.rank(store, tmp_path / "run", RankOptions(
-        damping=D, teleport=str(tele), dead_ends=dead_ends, tol=1e-12, threads=1))
+    res = shardrank.rank(
+        store,
+        tmp_path / "run",
+        RankOptions(damping=D, teleport=str(tele), dead_ends=dead_ends, tol=1e-12, threads=1),
+    )
     n = 8
     pi = res.scores
     v = dense_teleport(np.arange(n), np.array(TELEPORT_KEYS), np.array(TELEPORT_W))

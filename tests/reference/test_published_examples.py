@@ -29,10 +29,20 @@ def test_langville_meyer_six_page_web(build, tmp_path: Path, method: str) -> Non
     src = [1, 1, 3, 3, 3, 4, 4, 5, 5, 6]
     dst = [2, 3, 1, 2, 5, 5, 6, 4, 6, 4]
     store = build(src, dst, block_nodes=2)
-    res = shardrank.rank(store, tmp_path / "run", RankOptions(
-        damping=0.9, dead_ends="uniform", method=method, tol=1e-12, threads=1))
+    res = shardrank.rank(
+        store,
+        tmp_path / "run",
+        RankOptions(damping=0.9, dead_ends="uniform", method=method, tol=1e-12, threads=1),
+    )
     assert res.converged and res.keys.to_pylist() == [1, 2, 3, 4, 5, 6]
-    printed = [(0.03721, 5e-6), (0.05396, 5e-6), (0.04151, 5e-6), (0.3751, 5e-5), (0.2060, 5e-5), (0.2862, 5e-5)]
+    printed = [
+        (0.03721, 5e-6),
+        (0.05396, 5e-6),
+        (0.04151, 5e-6),
+        (0.3751, 5e-5),
+        (0.2060, 5e-5),
+        (0.2862, 5e-5),
+    ]
     for got, (want, half_ulp) in zip(res.scores.tolist(), printed, strict=True):
         assert abs(got - want) <= half_ulp
     assert [k for k, _ in res.top(6)] == [4, 6, 5, 2, 3, 1]
@@ -50,11 +60,15 @@ def test_bryan_leise_four_page_web(build, tmp_path: Path, method: str) -> None:
     # m = 0.15 (our damping d = 1 - m = 0.85), x = (0.368, 0.142, 0.288, 0.202) (values from
     # memory; printed to three decimals).
     store = build([1, 1, 1, 2, 2, 3, 4, 4], [2, 3, 4, 3, 4, 1, 1, 3])
-    res = shardrank.rank(store, tmp_path / "run", RankOptions(damping=0.85, method=method, tol=1e-12, threads=1))
+    res = shardrank.rank(
+        store, tmp_path / "run", RankOptions(damping=0.85, method=method, tol=1e-12, threads=1)
+    )
     assert res.converged
     assert np.max(np.abs(res.scores - [0.368, 0.142, 0.288, 0.202])) <= 5e-4
     # the undamped vector is the d -> 1 limit: at d = 0.99 it is already close (and still ranks
     # the pages 1, 3, 4, 2)
-    near = shardrank.rank(store, tmp_path / "near", RankOptions(damping=0.99, method=method, tol=1e-12, threads=1))
+    near = shardrank.rank(
+        store, tmp_path / "near", RankOptions(damping=0.99, method=method, tol=1e-12, threads=1)
+    )
     assert np.max(np.abs(near.scores - np.array([12, 4, 9, 6]) / 31)) <= 5e-3
     assert [k for k, _ in near.top(4)] == [1, 3, 4, 2]

@@ -56,7 +56,9 @@ def _graph(seed: int, weighted: bool) -> dict[str, Any]:
 
 
 @pytest.fixture(scope="module")
-def stores(tmp_path_factory: pytest.TempPathFactory) -> dict[tuple[bool, int], tuple[Path, dict[str, Any]]]:
+def stores(
+    tmp_path_factory: pytest.TempPathFactory,
+) -> dict[tuple[bool, int], tuple[Path, dict[str, Any]]]:
     """One store per (weighted, block size), built from real Parquet files with DuckDB."""
     tmp = tmp_path_factory.mktemp("libs")
     nodes = tmp / "nodes.parquet"
@@ -64,12 +66,19 @@ def stores(tmp_path_factory: pytest.TempPathFactory) -> dict[tuple[bool, int], t
     out = {}
     for weighted in (False, True):
         g = _graph(11 if weighted else 12, weighted)
-        f = write_edges(tmp / f"e{int(weighted)}" / "edges.parquet", g["src"].tolist(), g["dst"].tolist(),
-                        None if g["w"] is None else g["w"].tolist())
+        f = write_edges(
+            tmp / f"e{int(weighted)}" / "edges.parquet",
+            g["src"].tolist(),
+            g["dst"].tolist(),
+            None if g["w"] is None else g["w"].tolist(),
+        )
         for bn in BLOCK_SIZES:
             store = tmp / f"s{int(weighted)}-{bn}"
-            shardrank.build_store([f], store, BuildOptions(weight="w" if weighted else None, block_nodes=bn,
-                                                           nodes=[str(nodes)]))
+            shardrank.build_store(
+                [f],
+                store,
+                BuildOptions(weight="w" if weighted else None, block_nodes=bn, nodes=[str(nodes)]),
+            )
             out[(weighted, bn)] = (store, g)
     return out
 
@@ -103,8 +112,15 @@ def networkx_ranks(g: dict[str, Any], v: np.ndarray, dead_ends: str) -> np.ndarr
     pers = dict(zip(keys, v.tolist(), strict=True))
     dangling = None if dead_ends == "teleport" else dict.fromkeys(keys, 1.0)
     # networkx stops when the L1 change is < N * tol: 1e-15 * 151 is near float64 noise
-    ref = nx.pagerank(dg, alpha=DAMPING, personalization=pers, dangling=dangling, tol=1e-15,
-                      max_iter=100_000, weight="weight")
+    ref = nx.pagerank(
+        dg,
+        alpha=DAMPING,
+        personalization=pers,
+        dangling=dangling,
+        tol=1e-15,
+        max_iter=100_000,
+        weight="weight",
+    )
     return np.array([ref[k] for k in keys])
 
 
@@ -122,15 +138,27 @@ def igraph_ranks(g: dict[str, Any], v: np.ndarray, dead_ends: str) -> np.ndarray
                 weights += [1.0] * n
     gr = ig.Graph(n=n, edges=pairs, directed=True)
     gr.es["weight"] = weights
-    return np.array(gr.personalized_pagerank(directed=True, damping=DAMPING, reset=v.tolist(),
-                                             weights="weight", implementation="prpack"))
+    return np.array(
+        gr.personalized_pagerank(
+            directed=True,
+            damping=DAMPING,
+            reset=v.tolist(),
+            weights="weight",
+            implementation="prpack",
+        )
+    )
 
 
 @pytest.mark.parametrize("personalized", [False, True], ids=["uniform-teleport", "personalized"])
 @pytest.mark.parametrize("weighted", [False, True], ids=["unweighted", "weighted"])
 @pytest.mark.parametrize("dead_ends", ["teleport", "uniform"])
-def test_agrees_with_networkx_and_igraph(stores: dict[tuple[bool, int], tuple[Path, dict[str, Any]]],
-                                         tmp_path: Path, dead_ends: str, weighted: bool, personalized: bool) -> None:
+def test_agrees_with_networkx_and_igraph(
+    stores: dict[tuple[bool, int], tuple[Path, dict[str, Any]]],
+    tmp_path: Path,
+    dead_ends: str,
+    weighted: bool,
+    personalized: bool,
+) -> None:
     g = stores[(weighted, BLOCK_SIZES[0])][1]
     tele, v = _teleport(tmp_path, g, personalized)
     ref_nx = networkx_ranks(g, v, dead_ends)  # networkx.pagerank
@@ -141,21 +169,36 @@ def test_agrees_with_networkx_and_igraph(stores: dict[tuple[bool, int], tuple[Pa
     assert n_dead >= 5  # the case under test is there: dead ends besides the isolated nodes
     for bn, method in itertools.product(BLOCK_SIZES, ("power", "gauss-seidel")):
         store = stores[(weighted, bn)][0]
-        res = shardrank.rank(store, tmp_path / f"run-{bn}-{method}", RankOptions(
-            damping=DAMPING, tol=1e-12, method=method, dead_ends=dead_ends, teleport=tele, threads=1))
+        res = shardrank.rank(
+            store,
+            tmp_path / f"run-{bn}-{method}",
+            RankOptions(
+                damping=DAMPING,
+                tol=1e-12,
+                method=method,
+                dead_ends=dead_ends,
+                teleport=tele,
+                threads=1,
+            ),
+        )
         assert res.converged, (bn, method)
         assert res.keys.to_pylist() == g["keys"].tolist()
         assert np.max(np.abs(res.scores - ref_nx)) <= 1e-9, (bn, method, "networkx")
         assert np.max(np.abs(res.scores - ref_ig)) <= 1e-9, (bn, method, "igraph")
 
 
-def test_policies_coincide_for_a_uniform_teleport(stores: dict[tuple[bool, int], tuple[Path, dict[str, Any]]],
-                                                  tmp_path: Path) -> None:
+def test_policies_coincide_for_a_uniform_teleport(
+    stores: dict[tuple[bool, int], tuple[Path, dict[str, Any]]], tmp_path: Path
+) -> None:
     """With a uniform teleport both dead-end policies are the same chain (common practice), so
     both runs equal networkx's default pagerank."""
     store, g = stores[(False, 50)]
-    ref = networkx_ranks(g, np.full(g["keys"].size, 1.0 / g["keys"].size), "teleport")  # networkx.pagerank
-    runs = [shardrank.rank(store, tmp_path / p, RankOptions(dead_ends=p, tol=1e-12, threads=1)).scores
-            for p in ("teleport", "uniform")]
+    ref = networkx_ranks(
+        g, np.full(g["keys"].size, 1.0 / g["keys"].size), "teleport"
+    )  # networkx.pagerank
+    runs = [
+        shardrank.rank(store, tmp_path / p, RankOptions(dead_ends=p, tol=1e-12, threads=1)).scores
+        for p in ("teleport", "uniform")
+    ]
     assert np.array_equal(runs[0], runs[1])
     assert np.max(np.abs(runs[0] - ref)) <= 1e-9

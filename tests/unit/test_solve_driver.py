@@ -22,7 +22,9 @@ class DenseEngine:
 
     name = "dense"
 
-    def __init__(self, n: int = 6, d: float = 0.85, seed: int = 0, ctrl_c_at_step: int | None = None) -> None:
+    def __init__(
+        self, n: int = 6, d: float = 0.85, seed: int = 0, ctrl_c_at_step: int | None = None
+    ) -> None:
         rng = np.random.default_rng(seed)
         s = rng.uniform(0, 1, (n, n)) * (rng.uniform(0, 1, (n, n)) < 0.5)
         s[:, 0] = 0.0  # a dead end ...
@@ -58,8 +60,10 @@ def _exact(engine: DenseEngine) -> np.ndarray:
     return x / x.sum()
 
 
-@pytest.mark.skipif(signal.getsignal(signal.SIGINT) is not signal.default_int_handler,
-                    reason="needs Python's own SIGINT handler")
+@pytest.mark.skipif(
+    signal.getsignal(signal.SIGINT) is not signal.default_int_handler,
+    reason="needs Python's own SIGINT handler",
+)
 def test_ctrl_c_inside_a_step_waits_for_the_end_of_the_iteration() -> None:
     eng = DenseEngine(ctrl_c_at_step=3)
     n = eng.g.shape[0]
@@ -67,8 +71,14 @@ def test_ctrl_c_inside_a_step_waits_for_the_end_of_the_iteration() -> None:
     saved: list[tuple[np.ndarray, int]] = []
     state = IterState()
     with pytest.raises(KeyboardInterrupt):
-        iterate(eng, r, state, RankOptions(method="power", tol=1e-14), Reporter(),
-                lambda vec, st: saved.append((vec.copy(), st.iteration)))
+        iterate(
+            eng,
+            r,
+            state,
+            RankOptions(method="power", tol=1e-14),
+            Reporter(),
+            lambda vec, st: saved.append((vec.copy(), st.iteration)),
+        )
     # the interrupted step ran to its end, and r and the state describe the same iterate
     assert eng.finished_steps == 3 and state.iteration == 3 and len(state.residuals) == 3
     expected = np.full(n, 1.0 / n)
@@ -85,7 +95,9 @@ def test_the_driver_runs_outside_the_main_thread() -> None:
     eng = DenseEngine()
     r = np.full(6, 1.0 / 6)
     out: list[IterState] = []
-    t = threading.Thread(target=lambda: out.append(iterate(eng, r, IterState(), RankOptions(tol=1e-12), Reporter())))
+    t = threading.Thread(
+        target=lambda: out.append(iterate(eng, r, IterState(), RankOptions(tol=1e-12), Reporter()))
+    )
     t.start()
     t.join()
     assert out and out[0].converged
@@ -97,7 +109,12 @@ def test_convergence_is_only_declared_on_a_measured_bound(method: str) -> None:
     r = np.full(6, 1.0 / 6)
     tol = 1e-10
     st = iterate(eng, r, IterState(), RankOptions(method=method, tol=tol), Reporter())
-    assert st.converged and st.steps[-1] == "power" and st.error_bound is not None and st.error_bound <= tol
+    assert (
+        st.converged
+        and st.steps[-1] == "power"
+        and st.error_bound is not None
+        and st.error_bound <= tol
+    )
     assert len(st.residuals) == len(st.bounds) == len(st.steps) == st.iteration
     # a bound is recorded for exactly the power steps
     assert all((b is not None) == (s == "power") for b, s in zip(st.bounds, st.steps, strict=True))
@@ -108,14 +125,23 @@ def test_convergence_is_only_declared_on_a_measured_bound(method: str) -> None:
 def test_max_iter_ends_on_a_measured_step() -> None:
     eng = DenseEngine(seed=4)
     r = np.full(6, 1.0 / 6)
-    st = iterate(eng, r, IterState(), RankOptions(method="gauss-seidel", tol=1e-15, max_iter=4), Reporter())
+    st = iterate(
+        eng, r, IterState(), RankOptions(method="gauss-seidel", tol=1e-15, max_iter=4), Reporter()
+    )
     assert st.iteration == 4 and not st.converged
     assert st.steps[-1] == "power" and st.error_bound is not None and np.isfinite(st.error_bound)
     assert np.abs(r - _exact(eng)).sum() <= st.error_bound
 
 
-@pytest.mark.parametrize("bad", [np.array([0.5, np.nan, 0.5]), np.array([0.6, -0.1, 0.5]),
-                                 np.array([0.5, 0.5, 1e-11]), np.array([np.inf, 0.0, 0.0])])
+@pytest.mark.parametrize(
+    "bad",
+    [
+        np.array([0.5, np.nan, 0.5]),
+        np.array([0.6, -0.1, 0.5]),
+        np.array([0.5, 0.5, 1e-11]),
+        np.array([np.inf, 0.0, 0.0]),
+    ],
+)
 def test_invariants_refuse_broken_vectors(bad: np.ndarray) -> None:
     with pytest.raises(DamagedDataError):
         check_invariants(bad, 7)

@@ -25,6 +25,7 @@ from ..progress import Reporter
 from ..store import layout
 from ..store.manifest import StoreManifest
 from ..store.writer import StoreWriter
+from .partition import build_integer, plan_integer_build
 from .sources import InputFile, fingerprint_inputs, resolve_inputs
 from .tables import (Columns, arrow_reader, check_same_key_types, choose_columns, describe, scan_sql,
                      sniff_text, sql_ident, sql_str)
@@ -199,10 +200,20 @@ def _build(
         cols = choose_columns(describe(con, files), where, o.src, o.dst, o.weight)
         check_same_key_types(con, files, cols)
         counts = _validate_and_stage(con, files, cols, o, rep, where)
-        n = _map_keys(con, cols, node_files, o, rep)
-        _check_width(n, o)
-        counts.update(_dedupe(con, cols, o, rep))
-        manifest = _write(con, tmp, n, cols, o, counts, files, node_files, rep)
+        # integer keys in a compact range: numba counting sort (see partition.py); else SQL
+        plan = plan_integer_build(con, files, cols, counts["rows_read"] - counts["rows_dropped_null"],
+                                  memory, cols.weight is not None, bool(node_files))
+        fast = plan and build_integer(con, plan, tmp, o.block_nodes, o.self_loops == "drop", o.threads,
+                                      lambda n: (_check_width(n, o), _width_for(n, o))[1], rep)
+        if fast:
+            w, out_deg, in_deg, dd = fast
+            counts.update(dd)
+            manifest = _finish(w, cols, o, counts, files, node_files, out_deg, in_deg, rep, "counting-sort")
+        else:
+            n = _map_keys(con, cols, node_files, o, rep)
+            _check_width(n, o)
+            counts.update(_dedupe(con, cols, o, rep))
+            manifest = _write(con, tmp, n, cols, o, counts, files, node_files, rep)
     finally:
         con.close()
     for name in ("work.duckdb", "work.duckdb.wal"):
@@ -377,6 +388,14 @@ def _write(
     w.finish_shards()
     if w.n_edges != n_edges:
         raise ShardrankError(f"internal error: wrote {w.n_edges} edges, expected {n_edges}")
+    return _finish(w, cols, o, counts, files, node_files, out_deg, in_deg, rep, "sql")
+
+
+def _finish(
+    w: StoreWriter, cols: Columns, o: BuildOptions, counts: dict[str, int], files: list[InputFile],
+    node_files: list[InputFile], out_deg: np.ndarray, in_deg: np.ndarray, rep: Reporter, build_path: str,
+) -> StoreManifest:
+    """Counts, options and input fingerprint into the manifest, written last."""
     dead = int(np.count_nonzero(out_deg == 0))
     counts.update({"dead_ends": dead, "no_in_links": int(np.count_nonzero(in_deg == 0))})
     if counts["self_loop_rows_dropped"] == -1:
@@ -384,6 +403,7 @@ def _write(
     opts = {k: v for k, v in asdict(o).items() if k not in ("overwrite", "memory", "threads")}
     opts["nodes"] = [str(x) for x in o.nodes]
     opts["src"], opts["dst"], opts["weight"] = cols.src, cols.dst, cols.weight
+    opts["build_path"] = build_path  # "counting-sort" (partition.py) or "sql"; same store either way
     fp_opts = {k: opts[k] for k in ("src", "dst", "weight", "self_loops", "drop_nulls", "block_nodes")}
     rep.event("phase", "fingerprinting inputs...", phase="fingerprint")
     input_info = fingerprint_inputs(files + node_files, fp_opts)

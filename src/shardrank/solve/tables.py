@@ -36,6 +36,9 @@ def _table(con: duckdb.DuckDBPyConnection, path: str, value_names: tuple[str, ..
                                 hint=f"columns: key, {value_names[0]}")
         val = rest[0]
     if key_class(types[key]) != reader.manifest.key_type:
+        # a header-only CSV reads as text columns with no rows: say it is empty, not mistyped
+        if not con.execute(f"SELECT count(*) FROM {scan_sql(files)}").fetchall()[0][0]:
+            raise BadInputError(f"{path}: the {what} table is empty", hint="give at least one key with a positive value")
         raise BadInputError(
             f"{path}: keys are {types[key]} but the store's keys are {reader.manifest.key_type}",
             hint="use the same key type as the edge tables")
