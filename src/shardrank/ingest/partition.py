@@ -1,0 +1,392 @@
+"""The counting-sort build path for integer keys (numba), bounded in memory.
+
+DuckDB still reads and validates every input (``build._validate_and_stage``). For integer keys
+whose range ``lo..hi`` fits a direct table, this path then replaces DuckDB's join, GROUP BY
+and ORDER BY, which dominate a SQL build:
+
+1. scatter: stream (src, dst) batches out of DuckDB; mark every key present in a byte table;
+   drop self-loops if asked; append each edge, as two uint32 key offsets, to the spill file of
+   its destination key range (a counting sort of each batch: count, prefix sum, scatter).
+2. ids: a running count over the presence table gives every key its id in numeric key order,
+   the ids the SQL path gives.
+3. sort: for consecutive key ranges holding at most ``cap`` edges (the memory bound), pack
+   each edge as ``dst_id << 32 | src_id`` in a uint64, sort, drop duplicates, count degrees,
+   and append the result to one sorted spill file.
+4. write: with every in-degree known, stream the sorted edges into the StoreWriter.
+
+The result does not depend on batch order or thread count: step 3 sorts each range into the
+one canonical order. Weighted edges and ``--nodes`` tables take the SQL path.
+"""
+
+from __future__ import annotations
+
+import math
+import shutil
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+import duckdb
+import numba
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+from numba import njit, prange
+
+from .. import settings
+from ..errors import ShardrankError
+from ..progress import Reporter
+from ..store import layout
+from ..store.writer import StoreWriter
+from .sources import InputFile
+from .tables import Columns, arrow_reader, sql_str
+
+MAX_SPILL_FILES = 256  # destination key ranges written in the scatter pass (open files)
+RESERVE_BYTES = 384 * 2**20  # interpreter, DuckDB's streaming buffers, one Arrow batch
+BYTES_PER_EDGE = 16  # peak while sorting a range: uint32 pair (8) + packed uint64 key (8)
+MIN_CAP_EDGES = 1 << 20  # never sort fewer edges at once (16 MiB)
+MIN_EDGES_PER_SPILL = 1 << 16  # small inputs get few spill files
+_MASK32 = np.uint64(0xFFFFFFFF)
+
+
+@dataclass(frozen=True)
+class IntPlan:
+    """Key range and memory split of a counting-sort build."""
+
+    lo: int  # smallest key
+    span: int  # hi - lo + 1 (keys are stored as uint32 offsets from lo)
+    n_rows: int  # rows DuckDB will stream (after nulls are dropped)
+    cap_edges: int  # edges sorted at once
+    memory: int  # the build's budget in bytes
+
+
+# --- kernels --------------------------------------------------------------------------------
+@njit(cache=True)
+def scatter_batch(s, d, lo, span, shift, n_parts, drop_loops, present, out_pairs):  # pragma: no cover - jit
+    """Counting sort of one batch by destination key range.
+
+    Parameters
+    ----------
+    s, d : int64[m], source and destination keys
+    lo, span : int, keys must lie in ``lo .. lo + span - 1``
+    shift : int, range ``p`` holds key offsets ``p << shift .. ((p + 1) << shift) - 1``
+    n_parts : int
+    drop_loops : bool, leave out edges with ``s == d`` (their keys are still nodes)
+    present : uint8[span], set to 1 for every key seen
+    out_pairs : uint32[2 m], receives (dst offset, src offset) pairs grouped by range
+
+    Returns
+    -------
+    int64[n_parts + 1] start of each range in ``out_pairs`` (in pairs), or int64[0] if a key
+    lies outside the range (the caller then measures the range and starts again).
+    """
+    m = s.shape[0]
+    starts = np.zeros(n_parts + 1, dtype=np.int64)
+    for k in range(m):
+        a = s[k] - lo
+        b = d[k] - lo
+        if a < 0 or a >= span or b < 0 or b >= span:
+            return np.zeros(0, dtype=np.int64)
+        present[a] = 1
+        present[b] = 1
+        if drop_loops and a == b:
+            continue
+        starts[(b >> shift) + 1] += 1
+    for p in range(n_parts):
+        starts[p + 1] += starts[p]
+    nxt = starts[:-1].copy()
+    for k in range(m):
+        a = s[k] - lo
+        b = d[k] - lo
+        if drop_loops and a == b:
+            continue
+        p = b >> shift
+        q = nxt[p]
+        out_pairs[2 * q] = b
+        out_pairs[2 * q + 1] = a
+        nxt[p] = q + 1
+    return starts
+
+
+@njit(cache=True)
+def number_keys(present, ids_out):  # pragma: no cover - jit
+    """``ids_out[k]`` = number of present keys below ``k`` (the id of key ``k`` if present).
+
+    Returns the number of present keys.
+    """
+    n = 0
+    for k in range(present.shape[0]):
+        ids_out[k] = n
+        n += present[k]
+    return n
+
+
+@njit(parallel=True, cache=True)
+def pack_edges(pairs, ids, out):  # pragma: no cover - jit
+    """``out[k] = ids[dst] << 32 | ids[src]`` for the k-th (dst offset, src offset) pair."""
+    for k in prange(out.shape[0]):
+        out[k] = (np.uint64(ids[pairs[2 * k]]) << np.uint64(32)) | np.uint64(ids[pairs[2 * k + 1]])
+
+
+@njit(cache=True)
+def dedupe_sorted(keys, in_deg, out_deg):  # pragma: no cover - jit
+    """Compact sorted packed edges in place (duplicates dropped); count degrees and self-loops.
+
+    Returns (number of distinct edges, number of distinct self-loops).
+    """
+    w = 0
+    loops = 0
+    for k in range(keys.shape[0]):
+        x = keys[k]
+        if w > 0 and x == keys[w - 1]:
+            continue
+        keys[w] = x
+        w += 1
+        dd = x >> np.uint64(32)
+        ss = x & np.uint64(0xFFFFFFFF)
+        in_deg[dd] += 1
+        out_deg[ss] += 1
+        if dd == ss:
+            loops += 1
+    return w, loops
+
+
+# --- planning -------------------------------------------------------------------------------
+def _stats_range(con: duckdb.DuckDBPyConnection, files: list[InputFile], cols: Columns) -> tuple[int, int] | None:
+    """Key range from Parquet footer statistics (no scan); None if any file lacks them."""
+    if any(f.kind != "parquet" for f in files):
+        return None
+    lst = ", ".join(sql_str(str(f.path)) for f in files)
+    try:
+        rows = con.execute(
+            "SELECT path_in_schema, count(*), count(TRY_CAST(stats_min_value AS BIGINT)), "
+            "count(TRY_CAST(stats_max_value AS BIGINT)), min(TRY_CAST(stats_min_value AS BIGINT)), "
+            f"max(TRY_CAST(stats_max_value AS BIGINT)) FROM parquet_metadata([{lst}]) "
+            f"WHERE path_in_schema IN ({sql_str(cols.src)}, {sql_str(cols.dst)}) GROUP BY ALL"
+        ).fetchall()
+        n_groups = con.execute(
+            f"SELECT count(DISTINCT (file_name, row_group_id)) FROM parquet_metadata([{lst}])"
+        ).fetchall()[0][0]
+    except duckdb.Error:
+        return None
+    if len(rows) != (1 if cols.src == cols.dst else 2):
+        return None
+    if any(r[1] != n_groups or r[2] != n_groups or r[3] != n_groups for r in rows):
+        return None
+    return min(int(r[4]) for r in rows), max(int(r[5]) for r in rows)
+
+
+def _scan_range(con: duckdb.DuckDBPyConnection) -> tuple[int, int]:
+    row = con.execute("SELECT min(s), max(s), min(d), max(d) FROM clean").fetchall()[0]
+    return min(int(row[0]), int(row[2])), max(int(row[1]), int(row[3]))
+
+
+def _plan_for(lo: int, hi: int, n_rows: int, memory: int) -> IntPlan | None:
+    span = hi - lo + 1
+    if span > 2**32:
+        return None
+    fixed = 5 * span + 16 * span + RESERVE_BYTES  # presence + ids; two degree arrays (N <= span)
+    if fixed > memory // 2:
+        return None
+    cap = max((memory - fixed) // BYTES_PER_EDGE, MIN_CAP_EDGES)
+    return IntPlan(lo=lo, span=span, n_rows=n_rows, cap_edges=int(cap), memory=memory)
+
+
+def plan_integer_build(
+    con: duckdb.DuckDBPyConnection, files: list[InputFile], cols: Columns, n_rows: int, memory: int,
+    weighted: bool, has_node_files: bool,
+) -> IntPlan | None:
+    """A plan for the counting-sort path, or None when the SQL path must build the store."""
+    if cols.key_type != "int64" or weighted or has_node_files or n_rows == 0:
+        return None
+    rng = _stats_range(con, files, cols) or _scan_range(con)
+    return _plan_for(rng[0], rng[1], n_rows, memory)
+
+
+# --- the build ------------------------------------------------------------------------------
+class _OutOfRange(Exception):
+    """A key outside the planned range (footer statistics were not tight)."""
+
+
+def _shift_for(span: int, n_parts: int) -> int:
+    return max(0, math.ceil(math.log2(max(span, 1) / n_parts)))
+
+
+def _scatter(con: duckdb.DuckDBPyConnection, plan: IntPlan, spill: Path, drop_loops: bool,
+             present: np.ndarray, rep: Reporter) -> tuple[list[Path], list[int], int]:
+    """Pass over the edges: presence, and spill files by destination range. Returns the files,
+    their edge counts and the shift that defines their ranges."""
+    # about four ranges per sort group, so groups come out even when keys are skewed
+    want = max(1, min(MAX_SPILL_FILES, 4 * math.ceil(plan.n_rows / plan.cap_edges),
+                      plan.n_rows // MIN_EDGES_PER_SPILL))
+    shift = _shift_for(plan.span, want)
+    n_parts = ((plan.span - 1) >> shift) + 1
+    paths = [spill / f"range-{p:04d}.u32" for p in range(n_parts)]
+    sizes = [0] * n_parts
+    files = [open(p, "wb") for p in paths]
+    done = 0
+    try:
+        buf = np.empty(0, dtype=np.uint32)
+        for batch in arrow_reader(con, "SELECT s, d FROM clean", settings.BATCH_ROWS):
+            s = batch.column(0).to_numpy()
+            d = batch.column(1).to_numpy()
+            if buf.shape[0] < 2 * s.shape[0]:
+                buf = np.empty(2 * s.shape[0], dtype=np.uint32)
+            starts = scatter_batch(s, d, plan.lo, plan.span, shift, n_parts, drop_loops, present, buf)
+            if starts.shape[0] == 0:
+                raise _OutOfRange
+            for p in np.flatnonzero(np.diff(starts)).tolist():
+                a, b = int(starts[p]), int(starts[p + 1])
+                files[p].write(memoryview(buf[2 * a : 2 * b]).cast("B"))
+                sizes[p] += b - a
+            done += s.shape[0]
+            rep.progress("partitioning edges", done, plan.n_rows, "edges")
+    finally:
+        for f in files:
+            f.close()
+    return paths, sizes, shift
+
+
+def _groups(sizes: list[int], cap: int) -> list[list[int]]:
+    """Consecutive ranges whose edges fit ``cap`` together (a range over ``cap`` stands alone)."""
+    out: list[list[int]] = []
+    cur: list[int] = []
+    total = 0
+    for p, n in enumerate(sizes):
+        if n == 0:
+            continue
+        if cur and total + n > cap:
+            out.append(cur)
+            cur, total = [], 0
+        cur.append(p)
+        total += n
+    if cur:
+        out.append(cur)
+    return out
+
+
+def _read_pairs(paths: list[Path], sizes: list[int]) -> np.ndarray:
+    pairs = np.empty(2 * sum(sizes), dtype=np.uint32)
+    pos = 0
+    for path, n in zip(paths, sizes, strict=True):
+        with open(path, "rb") as f:
+            got = f.readinto(memoryview(pairs[pos : pos + 2 * n]).cast("B"))
+        if got != 8 * n:
+            raise ShardrankError(f"internal error: {path} holds {got} bytes, expected {8 * n}")
+        pos += 2 * n
+        path.unlink()
+    return pairs
+
+
+def _sort_ranges(paths: list[Path], sizes: list[int], ids: np.ndarray, cap: int, sorted_path: Path,
+                 in_deg: np.ndarray, out_deg: np.ndarray, rep: Reporter) -> tuple[int, int]:
+    """Sort and deduplicate range groups in order into ``sorted_path``; (edges, self-loops)."""
+    groups = _groups(sizes, cap)
+    n_edges = n_loops = 0
+    with open(sorted_path, "wb") as out:
+        for g, members in enumerate(groups):
+            pairs = _read_pairs([paths[p] for p in members], [sizes[p] for p in members])
+            keys = np.empty(pairs.shape[0] // 2, dtype=np.uint64)
+            pack_edges(pairs, ids, keys)
+            del pairs
+            keys.sort()
+            n, loops = dedupe_sorted(keys, in_deg, out_deg)
+            out.write(memoryview(keys[:n]).cast("B"))
+            n_edges += int(n)
+            n_loops += int(loops)
+            del keys
+            rep.progress("sorting and merging duplicates", g + 1, len(groups), "ranges")
+    return n_edges, n_loops
+
+
+def _write_nodes(path: Path, present: np.ndarray, lo: int, n: int) -> None:
+    """nodes.parquet: id, key (int64) in id order, in bounded row groups."""
+    keys = np.flatnonzero(present).astype(np.int64)
+    keys += lo
+    schema = pa.schema([("id", pa.int64()), ("key", pa.int64())])
+    step = settings.BATCH_ROWS
+    with pq.ParquetWriter(path, schema, compression="zstd") as w:
+        for a in range(0, n, step):
+            b = min(a + step, n)
+            w.write_table(pa.table([pa.array(np.arange(a, b, dtype=np.int64)), pa.array(keys[a:b])], schema=schema),
+                          row_group_size=step)
+
+
+def _stream_sorted(path: Path, w: StoreWriter, n_edges: int, rep: Reporter) -> None:
+    step = settings.BATCH_ROWS
+    done = 0
+    with open(path, "rb") as f:
+        while done < n_edges:
+            k = np.fromfile(f, dtype=np.uint64, count=min(step, n_edges - done))
+            if k.shape[0] == 0:
+                raise ShardrankError(f"internal error: {path} ended after {done} of {n_edges} edges")
+            w.add_edges((k >> np.uint64(32)).astype(np.int64), (k & _MASK32).astype(np.uint32), None)
+            done += k.shape[0]
+            rep.progress("writing shards", done, n_edges, "edges", block=w._cur)
+
+
+def build_integer(
+    con: duckdb.DuckDBPyConnection, plan: IntPlan, tmp: Path, block_nodes: int, drop_loops: bool,
+    threads: int | None, checked_width: Callable[[int], int], rep: Reporter,
+) -> tuple[StoreWriter, np.ndarray, np.ndarray, dict[str, int]] | None:
+    """Write nodes, degrees and shards of the store in ``tmp`` by the counting-sort path.
+
+    Returns None (nothing written) if a key lies outside the planned range and the measured
+    range is too wide for this path: the caller then takes the SQL path. Otherwise returns
+    the writer (shards finished, manifest not yet written), the out- and in-degrees,
+    and the counts the SQL path's dedupe step reports (``duplicates_merged``, ``self_loops``,
+    ``self_loop_rows_dropped``, -1 meaning "all self-loop rows").
+    """
+    spill = tmp / "spill-ranges"
+    spill.mkdir()
+    old_threads = numba.get_num_threads()
+    if threads:
+        numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+    try:
+        present = np.zeros(plan.span, dtype=np.uint8)
+        rep.event("phase", "partitioning edges by destination...", phase="partition")
+        try:
+            paths, sizes, _shift = _scatter(con, plan, spill, drop_loops, present, rep)
+        except _OutOfRange:
+            # footer statistics were not tight: measure the range and start again
+            for p in spill.iterdir():
+                p.unlink()
+            lo, hi = _scan_range(con)
+            wider = _plan_for(lo, hi, plan.n_rows, plan.memory)
+            if wider is None:
+                return None
+            plan = wider
+            present = np.zeros(plan.span, dtype=np.uint8)
+            paths, sizes, _shift = _scatter(con, plan, spill, drop_loops, present, rep)
+        ids = np.empty(plan.span, dtype=np.uint32)
+        n = int(number_keys(present, ids))
+        width = checked_width(n)
+        rep.event("phase", "writing node keys...", phase="nodes")
+        _write_nodes(tmp / layout.NODES, present, plan.lo, n)
+        del present
+        in_deg = np.zeros(n, dtype=np.int64)
+        out_deg = np.zeros(n, dtype=np.int64)
+        rep.event("phase", "sorting edges and merging duplicates...", phase="sort")
+        sorted_path = spill / "sorted.u64"
+        n_edges, n_loops = _sort_ranges(paths, sizes, ids, plan.cap_edges, sorted_path, in_deg, out_deg, rep)
+        del ids
+        w = StoreWriter(tmp, n, block_nodes, f"<u{width // 8}", False)
+        w.add_file(layout.NODES)
+        w.write_array(layout.OUT_DEGREE, out_deg)
+        w.write_array(layout.IN_DEGREE, in_deg)
+        w.write_array(layout.OUT_WEIGHT, out_deg.astype(np.float64))
+        w.begin_shards(in_deg)
+        _stream_sorted(sorted_path, w, n_edges, rep)
+        w.finish_shards()
+        if w.n_edges != n_edges:
+            raise ShardrankError(f"internal error: wrote {w.n_edges} edges, expected {n_edges}")
+    finally:
+        numba.set_num_threads(old_threads)
+        shutil.rmtree(spill, ignore_errors=True)
+    kept_rows = sum(sizes)
+    counts = {"duplicates_merged": kept_rows - n_edges, "self_loops": n_loops,
+              "self_loop_rows_dropped": -1 if drop_loops else 0}
+    return w, out_deg, in_deg, counts
+
+
+__all__ = ["IntPlan", "build_integer", "plan_integer_build"]
