@@ -55,6 +55,7 @@ tbody tr:nth-child(even) {{ background: var(--shade); }}
 .n {{ text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }}
 td.key {{ min-width: 12rem; overflow-wrap: anywhere; word-break: break-word;
   font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, "DejaVu Sans Mono", monospace; font-size: .82rem; }}
+.nw {{ white-space: nowrap; }}
 .up {{ color: var(--a); }} .down {{ color: var(--b); }}
 footer {{ margin-top: 2.5rem; padding-top: .6rem; border-top: 1px solid var(--rule); font-size: .8rem;
   color: var(--muted); overflow-wrap: anywhere; }}
@@ -98,9 +99,14 @@ def num(x: float | int | None, fmt: str = ",") -> str:
     return format(x, fmt)
 
 
+def _keep_whole(v: str) -> str:
+    """Short one-word values (numbers such as 1.5e-01) must not break at their hyphen."""
+    return f'<span class="nw">{v}</span>' if " " not in v and len(v) <= 24 else v
+
+
 def facts(items: Iterable[tuple[str, str]]) -> str:
     """A definition list of (label, already-escaped value) pairs."""
-    rows = "".join(f"<div><dt>{html.escape(k)}</dt><dd>{v}</dd></div>" for k, v in items)
+    rows = "".join(f"<div><dt>{html.escape(k)}</dt><dd>{_keep_whole(v)}</dd></div>" for k, v in items)
     return f'<dl class="facts">{rows}</dl>'
 
 

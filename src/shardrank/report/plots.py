@@ -15,6 +15,7 @@ from typing import Any
 import matplotlib
 import numpy as np
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 
 from . import palette
 
@@ -56,6 +57,7 @@ def to_svg(fig: Figure, name: str, label: str) -> str:
         fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
     svg = buf.getvalue()
     svg = svg[svg.index("<svg"):]
+    svg = re.sub(r"<metadata>.*?</metadata>", "", svg, count=1, flags=re.S)  # RDF boilerplate
     # fixed pt sizes -> scale with the page; the viewBox keeps the aspect ratio
     svg = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
                  rf'<svg\1 class="plot" role="img" aria-label="{html.escape(label)}"', svg, count=1)
@@ -83,6 +85,7 @@ def convergence(history: dict[str, Sequence[Any]], tol: float) -> str:
                     label="guaranteed L1 error bound")
         if tol > 0:
             ax.axhline(tol, color=palette.MUTED, lw=1.0, ls=(0, (4, 3)), label=f"tolerance {tol:g}")
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_xlabel("iteration")
         ax.set_ylabel("L1 norm (log scale)")
         ax.legend(loc="upper right", fontsize=8)
