@@ -1,0 +1,166 @@
+#!/usr/bin/env python3
+"""Benchmark `shardrank refresh`: a warm refresh after 1% edge churn vs a cold refresh of the same graph.
+
+Steps (each refresh is a child process running the CLI, timed from outside)::
+
+    1. snapshot B = snapshot A with a fraction (default 1%) of its edges rewired: the destination
+       of each chosen edge is replaced by the destination of another edge picked at random (so
+       the in-degree distribution is kept), in every part file alike (no part is unchanged)
+    2. home W: refresh A                 night 1, cold (setup; reported, not compared)
+    3. home W: refresh B                 night 2, warm-started from night 1   <- measured
+    4. home C: refresh B                 a fresh home: cold                    <- baseline
+    5. (optional, --solver) rank W's store of B cold and warm outside refresh, to separate the
+       solver from the build
+
+Prints iterations, seconds per phase and the ratios warm / cold; writes the same as JSON
+(--json-out). Figures and commands go into docs/performance.md ("Refresh").
+
+usage:
+  scripts/bench_refresh.py --edges /work/bench-data/kron23 --work /work/bench-data/refresh-work
+  scripts/bench_refresh.py --edges /tmp/k20 --work /tmp/rw --churn 0.01 --threads 2
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+CLI = "import sys; from shardrank.cli.main import main; sys.exit(main(sys.argv[1:]))"
+
+
+def churn(src_dir: Path, out_dir: Path, frac: float, seed: int) -> dict[str, Any]:
+    """Write snapshot B: ``frac`` of the edges of every part get another edge's destination."""
+    if out_dir.exists():
+        shutil.rmtree(out_dir)
+    out_dir.mkdir(parents=True)
+    rng = np.random.default_rng(seed)
+    changed = total = 0
+    parts = sorted(p for p in src_dir.iterdir() if p.suffix == ".parquet")
+    for f in parts:
+        t = pq.read_table(f)
+        src = t.column("src").to_numpy()
+        dst = t.column("dst").to_numpy().copy()
+        m = dst.size
+        k = int(round(m * frac))
+        idx = rng.choice(m, k, replace=False)
+        dst[idx] = dst[rng.integers(0, m, k)]
+        pq.write_table(pa.table({"src": src, "dst": dst}), out_dir / f.name)
+        changed += int(np.count_nonzero(dst[idx] != t.column("dst").to_numpy()[idx]))
+        total += m
+    return {"parts": len(parts), "edges": total, "rewired": changed, "fraction": changed / total}
+
+
+def refresh(edges: Path, home: Path, extra: list[str]) -> tuple[float, dict[str, Any]]:
+    cmd = [sys.executable, "-c", CLI, "refresh", "--edges", str(edges), "--home", str(home), "-q", *extra]
+    t0 = time.perf_counter()
+    p = subprocess.run(cmd, capture_output=True, text=True)
+    wall = time.perf_counter() - t0
+    if p.returncode != 0:
+        raise SystemExit(f"refresh failed (exit {p.returncode}):\n{p.stderr[-3000:]}")
+    return wall, json.loads(p.stdout.strip().splitlines()[-1])
+
+
+def rank(store: Path, out: Path, extra: list[str]) -> tuple[float, dict[str, Any]]:
+    if out.exists():
+        shutil.rmtree(out)
+    cmd = [sys.executable, "-c", CLI, "rank", str(store), "--out", str(out), "-q", *extra]
+    t0 = time.perf_counter()
+    p = subprocess.run(cmd, capture_output=True, text=True)
+    wall = time.perf_counter() - t0
+    if p.returncode != 0:
+        raise SystemExit(f"rank failed (exit {p.returncode}):\n{p.stderr[-3000:]}")
+    return wall, json.loads((out / "run.json").read_text())
+
+
+def read_all(folder: Path) -> None:
+    """Bring the inputs into the page cache so neither contender pays for the first read."""
+    for p in sorted(folder.iterdir()):
+        with open(p, "rb") as f:
+            while f.read(1 << 24):
+                pass
+
+
+def row(name: str, w: float | int | None, c: float | int | None) -> str:
+    def fmt(x: float | int | None) -> str:
+        return "-" if x is None else (f"{x:,}" if isinstance(x, int) else f"{x:,.2f}")
+
+    ratio = f"{w / c:.2f}" if w is not None and c else "-"
+    return f"  {name:<22} {fmt(w):>12} {fmt(c):>12} {ratio:>8}"
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--edges", type=Path, required=True, help="snapshot A: a directory of Parquet parts (src, dst)")
+    ap.add_argument("--work", type=Path, required=True, help="scratch directory (snapshot B, two homes)")
+    ap.add_argument("--churn", type=float, default=0.01, help="fraction of edges rewired in snapshot B")
+    ap.add_argument("--seed", type=int, default=5)
+    ap.add_argument("--threads", type=int, help="threads for build and rank (default: all cores)")
+    ap.add_argument("--memory", default="6GB", help="build memory budget")
+    ap.add_argument("--solver", action="store_true", help="also rank W's store of B cold and warm outside refresh")
+    ap.add_argument("--json-out", type=Path, help="write the figures as JSON here")
+    ap.add_argument("--keep-work", action="store_true", help="leave the work directory in place")
+    a = ap.parse_args(argv)
+    extra = ["--memory", a.memory] + (["--threads", str(a.threads)] if a.threads else [])
+    a.work.mkdir(parents=True, exist_ok=True)
+    snap_b = a.work / "snapshot-b"
+    home_w, home_c = a.work / "home-warm", a.work / "home-cold"
+    for h in (home_w, home_c):
+        shutil.rmtree(h, ignore_errors=True)
+    print(f"snapshot A: {a.edges}", flush=True)
+    info = churn(a.edges, snap_b, a.churn, a.seed)
+    print(f"snapshot B: {snap_b} ({info['rewired']:,} of {info['edges']:,} edges rewired, "
+          f"{info['fraction']:.3%}, in all {info['parts']} parts)", flush=True)
+    read_all(a.edges)
+    t_a, s_a = refresh(a.edges, home_w, extra)
+    print(f"night 1 (cold, setup): {t_a:.1f} s, {s_a['iterations']['count']} iterations", flush=True)
+    read_all(snap_b)
+    t_w, s_w = refresh(snap_b, home_w, extra)
+    print(f"night 2 warm: {t_w:.1f} s", flush=True)
+    t_c, s_c = refresh(snap_b, home_c, extra)
+    print(f"night 2 cold: {t_c:.1f} s", flush=True)
+    out: dict[str, Any] = {"edges": str(a.edges), "churn": info, "threads": a.threads, "memory": a.memory,
+                           "night1": {"wall": t_a, "summary": s_a},
+                           "warm": {"wall": t_w, "summary": s_w}, "cold": {"wall": t_c, "summary": s_c}}
+    print(f"\nrefresh of snapshot B ({s_w['nodes']:,} nodes, {s_w['edges']:,} edges)")
+    print(f"  {'':<22} {'warm':>12} {'cold':>12} {'warm/cold':>8}")
+    print(row("iterations", s_w["iterations"]["count"], s_c["iterations"]["count"]))
+    phases = [p for p in s_c["seconds"] if p != "total"] + [p for p in s_w["seconds"] if p not in s_c["seconds"]]
+    for p in phases:
+        print(row(f"{p} s", s_w["seconds"].get(p), s_c["seconds"].get(p)))
+    print(row("total (in process) s", s_w["seconds"]["total"], s_c["seconds"]["total"]))
+    print(row("wall (process) s", t_w, t_c))
+    print(f"  cold estimate in the warm summary: {s_w['iterations'].get('cold_estimate')} iterations; "
+          f"error bounds {s_w['error_bound']:.2e} (warm), {s_c['error_bound']:.2e} (cold)")
+    if a.solver:
+        store = home_w / s_w["store"]
+        prev = home_w / s_a["run"]
+        tc, dc = rank(store, a.work / "solver-cold", extra[2:])
+        tw, dw = rank(store, a.work / "solver-warm", [*extra[2:], "--init", str(prev)])
+        print("\nsolver only (rank of the same store, outside refresh)")
+        print(row("iterations", dw["iterations"], dc["iterations"]))
+        print(row("iterate s", dw["timings"]["iterate_seconds"], dc["timings"]["iterate_seconds"]))
+        print(row("open s (incl. warm join)", dw["timings"]["open_seconds"], dc["timings"]["open_seconds"]))
+        print(row("wall (process) s", tw, tc))
+        out["solver"] = {"cold": {"wall": tc, "iterations": dc["iterations"], "timings": dc["timings"]},
+                         "warm": {"wall": tw, "iterations": dw["iterations"], "timings": dw["timings"]}}
+    if a.json_out:
+        a.json_out.write_text(json.dumps(out, indent=2, default=str))
+    if not a.keep_work:
+        for p in (snap_b, home_w, home_c, a.work / "solver-cold", a.work / "solver-warm"):
+            shutil.rmtree(p, ignore_errors=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
