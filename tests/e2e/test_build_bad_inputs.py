@@ -242,3 +242,21 @@ def test_as_a_subprocess(name: str, extra: list[str], needle: str, out: Path) ->
     assert "Traceback" not in p.stderr and needle in p.stderr
     assert "error:" in p.stderr and "hint:" in p.stderr
     _nothing_left(out)
+
+
+def test_too_little_memory_is_a_clear_error(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # DuckDB raised OutOfMemoryException through the CLI as a traceback (exit 1) before
+    rng = np.random.default_rng(5)
+    urls = pa.array([f"https://host{i % 97:03d}.example/s/{i:07d}/page.html" for i in range(200_000)])
+    f = tmp_path / "links.parquet"
+    pq.write_table(pa.table({"src": urls.take(rng.integers(0, 200_000, 600_000)),
+                             "dst": urls.take(rng.integers(0, 200_000, 600_000))}), f)
+    capsys.readouterr()
+    rc = main(["build", str(f), "--memory", "1MB", "--threads", "2", "--out", str(out), "-q"])
+    if rc == 0:  # a leaner build path may fit; then the store must be sound
+        assert main(["verify", str(out), "-q"]) == 0
+        return
+    err = capsys.readouterr().err
+    assert rc == 2 and "Traceback" not in err, err
+    assert "ran out of memory" in err and "--memory" in err
+    _nothing_left(out)
