@@ -57,6 +57,7 @@ def _rank_options(a: argparse.Namespace) -> RankOptions:
         damping=a.damping, tol=a.tol, max_iter=a.max_iter, method=a.method, dead_ends=a.dead_ends,
         teleport=a.teleport, ignore_unknown_keys=a.ignore_unknown_keys, init=a.init, threads=a.threads,
         checkpoint_every=a.checkpoint_every, checkpoint_seconds=a.checkpoint_seconds, engine=a.engine,
+        scheduler=a.scheduler, workers=a.workers, exchange=a.exchange,
     )
 
 

@@ -6,6 +6,7 @@ import argparse
 
 from .. import settings
 from ..errors import EXIT_CODES
+from ..solve.engine import ENGINES
 from . import commands
 
 EXIT_TABLE = "exit codes:\n" + "\n".join(f"  {k:<4} {v}" for k, v in EXIT_CODES.items())
@@ -123,7 +124,15 @@ examples:
     g.add_argument("--checkpoint-every", type=int, metavar="N", help="checkpoint every N iterations")
     g.add_argument("--checkpoint-seconds", type=float, default=settings.CHECKPOINT_SECONDS, metavar="S",
                    help="checkpoint every S seconds (when --checkpoint-every is not given)")
-    g.add_argument("--engine", default="local", choices=("local",), help="where the iteration runs")
+    g.add_argument("--engine", default="local", choices=tuple(ENGINES),
+                   help="where the iteration runs: this process, or a Dask cluster (pip install 'shardrank[dask]')")
+    g.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="dask: address of a running Dask scheduler (default: start --workers local processes)")
+    g.add_argument("--workers", type=int, metavar="N",
+                   help="dask without --scheduler: local worker processes (default: one per core)")
+    g.add_argument("--exchange", metavar="DIR_OR_URL",
+                   help="dask: shared directory or fsspec URL every worker can read, for the per-step "
+                        "score vectors (default: RUN/exchange, so put RUN on shared storage)")
     g.add_argument("--overwrite", action="store_true", help="replace an existing RUN")
     _common(p)
 

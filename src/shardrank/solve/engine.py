@@ -9,14 +9,17 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from pathlib import Path
 from typing import Protocol
 
 import numba
 import numpy as np
 
 from .. import settings
+from ..errors import BadInputError
 from ..kernels import gather_block, gather_block_fresh, n_chunks, scale_range
 from ..store.reader import StoreReader
+from .options import RankOptions
 from .problem import Problem
 
 BlockHook = Callable[[int, int], None]
@@ -107,4 +110,25 @@ class LocalEngine:
         pass
 
 
-ENGINES: dict[str, Callable[..., Engine]] = {"local": LocalEngine}
+EngineFactory = Callable[[StoreReader, Problem, RankOptions, Path], Engine]
+"""``factory(reader, problem, options, run_dir) -> Engine``."""
+
+
+def _local_engine(reader: StoreReader, problem: Problem, options: RankOptions, run_dir: Path) -> Engine:
+    return LocalEngine(reader, problem, options.threads)
+
+
+def _dask_engine(reader: StoreReader, problem: Problem, options: RankOptions, run_dir: Path) -> Engine:
+    # imported only when asked for: the local engine needs neither dask nor fsspec
+    try:
+        from .dask_engine import DaskEngine
+    except ImportError as e:
+        if (e.name or "").split(".")[0] not in ("dask", "distributed", "fsspec"):
+            raise
+        raise BadInputError(f"--engine dask needs the package {e.name!r}, which is not installed",
+                            hint="pip install 'shardrank[dask]'") from None
+    return DaskEngine.from_options(reader, problem, options, run_dir)
+
+
+# the one list of engines; `--engine NAME` picks one by name
+ENGINES: dict[str, EngineFactory] = {"local": _local_engine, "dask": _dask_engine}

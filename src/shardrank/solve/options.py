@@ -28,7 +28,10 @@ class RankOptions:
     threads: int | None = None
     checkpoint_every: int | None = None  # iterations
     checkpoint_seconds: float = settings.CHECKPOINT_SECONDS
-    engine: str = "local"
+    engine: str = "local"  # a name in solve.engine.ENGINES
+    scheduler: str | None = None  # dask engine: address of a running scheduler (tcp://HOST:PORT)
+    workers: int | None = None  # dask engine without a scheduler: local worker processes
+    exchange: str | None = None  # dask engine: shared directory or URL for per-step vectors
 
     def validate(self) -> None:
         d = self.damping
@@ -53,6 +56,11 @@ class RankOptions:
             raise BadInputError("--checkpoint-every must be at least 1 iteration")
         if not self.checkpoint_seconds > 0:
             raise BadInputError("--checkpoint-seconds must be positive")
+        if self.workers is not None and self.workers < 1:
+            raise BadInputError("--workers must be at least 1")
+        if self.engine != "dask" and (self.scheduler or self.workers or self.exchange):
+            raise BadInputError("--scheduler, --workers and --exchange apply to --engine dask only",
+                                hint="add --engine dask")
 
     def answer_options(self) -> dict[str, Any]:
         """The options that determine the iterates bit for bit (checked on resume)."""

@@ -25,6 +25,7 @@ from ..errors import BadInputError
 from ..progress import Reporter
 from ..results import runfiles
 from ..results.result import RankResult, read_run_json
+from ..store import urls
 from ..store.atomic import fsync_dir, write_json_atomic, write_npy_atomic
 from ..store.reader import StoreReader
 from .checkpoint import CKPT_DIR, IterState, load_checkpoint, write_checkpoint
@@ -115,7 +116,7 @@ class _Run:
             factory = ENGINES[o.engine]
         except KeyError:
             raise BadInputError(f"--engine {o.engine!r} is not one of {', '.join(ENGINES)}") from None
-        engine: Engine = factory(reader, problem, o.threads)
+        engine: Engine = factory(reader, problem, o, self.run)
         meta = {"store_fingerprint": reader.fingerprint, "answer_options": o.answer_options(),
                 "teleport_hash": self.doc["teleport"]["hash"]}
 
@@ -179,7 +180,7 @@ def rank(store: str | Path, out: str | Path, options: RankOptions | None = None,
             raise BadInputError(f"{run} already exists and is not empty",
                                 hint="pass --overwrite, pick another --out, or `shardrank resume` it")
     t0 = time.monotonic()
-    reader = StoreReader.open(store)
+    reader = urls.open_store(store)
     rep.event("phase", f"verifying {reader.n_edges:,} edges in {reader.n_blocks} blocks...", phase="verify")
     reader.verify_checksums()
     tele, tele_info = _teleport(reader, o, rep)
@@ -191,7 +192,7 @@ def rank(store: str | Path, out: str | Path, options: RankOptions | None = None,
     doc: dict[str, Any] = {
         "format": settings.RUN_FORMAT, "version": settings.RUN_FORMAT_VERSION, "status": "running",
         "created": _now(), "options": o.to_json(),
-        "store": {"path": str(Path(store).resolve()), "fingerprint": reader.fingerprint},
+        "store": {"path": urls.describe(store), "fingerprint": reader.fingerprint},
         "n_nodes": reader.n_nodes, "n_edges": reader.n_edges,
         "teleport": tele_info, "init": init_info, "timings": {"open_seconds": round(t_open, 4)},
     }
@@ -218,8 +219,8 @@ def resume(run: str | Path, reporter: Reporter | None = None, store: str | Path 
         diff = {k: (v, o.answer_options()[k]) for k, v in expect.answer_options().items() if o.answer_options()[k] != v}
         raise BadInputError(f"{p}: options differ from the run's ({', '.join(f'{k}: {a} vs {b}' for k, (a, b) in diff.items())})",
                             hint="resume with the run's own options, or rank into a new directory")
-    store_path = Path(store) if store is not None else Path(doc["store"]["path"])
-    reader = StoreReader.open(store_path)
+    store_path = str(store) if store is not None else doc["store"]["path"]
+    reader = urls.open_store(store_path)
     reader.verify_checksums()
     if reader.fingerprint != doc["store"]["fingerprint"]:
         raise BadInputError(f"{store_path}: the store changed since the run started (fingerprint differs)",

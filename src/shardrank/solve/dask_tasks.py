@@ -1,0 +1,170 @@
+"""What a Dask worker runs: one shard's gather, with the same kernels as the local engine.
+
+A task reads only immutable inputs: the store (checked against its fingerprint) and the files
+the driver wrote for this step (see :mod:`shardrank.solve.dask_engine`). It returns its block's
+new scores and the per-chunk residual partials and writes nothing, so running it twice (a
+retry, or a lost worker's task run again elsewhere) gives the same bytes.
+
+Per worker process, small caches avoid repeated work: opened stores, vectors fetched from a
+non-local exchange, and the Gauss-Seidel sweep's scaled-score vector (fresh blocks are applied
+to it as the chain of block tasks moves on).
+"""
+
+from __future__ import annotations
+
+import io
+import tempfile
+import threading
+from collections import OrderedDict
+from dataclasses import dataclass
+from pathlib import Path
+
+import numba
+import numpy as np
+
+from ..errors import DamagedDataError
+from ..kernels import gather_block, gather_block_fresh, n_chunks
+from ..store import urls
+from ..store.reader import Shard, StoreReader
+
+_NO_ARRAY = np.empty(0, dtype=np.float64)
+_LOCK = threading.RLock()  # re-entered: the sweep vector is built from fetched vectors
+_READERS: dict[tuple[str, str], StoreReader] = {}
+_VECTORS: OrderedDict[str, np.ndarray] = OrderedDict()  # non-local exchange files, newest last
+_VECTORS_KEPT = 3
+_SWEEP: dict[str, tuple[np.ndarray, int]] = {}  # step dir -> (scaled scores, fresh blocks applied)
+
+
+@dataclass(frozen=True)
+class StepJob:
+    """What every task of one step needs (small; sent with each task)."""
+
+    store: str  # absolute path or URL
+    fingerprint: str
+    step_dir: str  # absolute path or URL of EXCHANGE/<session>/step-NNNNNN
+    n_nodes: int
+    damping: float
+    chunk: int
+    threads: int  # numba threads inside one task
+    firsts: tuple[int, ...]  # first node of every block (Gauss-Seidel applies fresh blocks)
+
+
+@dataclass(frozen=True)
+class BlockTask:
+    """One destination block of one step."""
+
+    index: int
+    first: int
+    n_nodes: int
+    add_uniform: float
+    add_teleport: float
+    teleport_ids: np.ndarray | None  # block-local ids of the teleport entries in this block
+    teleport_values: np.ndarray | None
+
+
+def step_file(step_dir: urls.Location, kind: str, block: int | None = None) -> urls.Location:
+    """``s.npy`` (scaled scores), ``r-NNNNNN.npy`` (old block scores), ``fresh-NNNNNN.npy``."""
+    return step_dir.child(f"{kind}.npy" if block is None else f"{kind}-{block:06d}.npy")
+
+
+def _cache_dir() -> Path:
+    try:
+        from distributed import get_worker
+
+        return Path(get_worker().local_directory) / "shardrank-stores"
+    except ValueError:  # not inside a worker (e.g. a task run in the driver for a test)
+        return Path(tempfile.gettempdir()) / "shardrank-stores"
+
+
+def _reader(job: StepJob) -> StoreReader:
+    key = (job.store, job.fingerprint)
+    with _LOCK:
+        r = _READERS.get(key)
+        if r is None:
+            r = urls.open_store(job.store, cache=_cache_dir())
+            if r.fingerprint != job.fingerprint:
+                raise DamagedDataError(f"{job.store}: the store this worker sees is not the one the driver "
+                                       "opened (fingerprints differ)",
+                                       hint="every worker must see the same store; was it rebuilt during the run?")
+            _READERS[key] = r
+        return r
+
+
+def _vector(loc: urls.Location) -> np.ndarray:
+    """A float64 vector the driver wrote: memory-mapped when local, else fetched once per worker."""
+    if loc.local is not None:
+        return np.asarray(np.load(loc.local, mmap_mode="r", allow_pickle=False))
+    with _LOCK:
+        v = _VECTORS.get(loc.url)
+        if v is None:
+            v = np.load(io.BytesIO(urls.read_bytes(loc)), allow_pickle=False)
+            _VECTORS[loc.url] = v
+            while len(_VECTORS) > _VECTORS_KEPT:
+                _VECTORS.popitem(last=False)
+        return v
+
+
+def _teleport_block(t: BlockTask) -> np.ndarray:
+    """The teleport distribution on the block, as :meth:`Teleport.fill_block` builds it."""
+    if t.teleport_ids is None or t.teleport_values is None:
+        return _NO_ARRAY
+    v = np.zeros(t.n_nodes, dtype=np.float64)
+    v[t.teleport_ids] = t.teleport_values
+    return v
+
+
+def _arrays(sh: Shard) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    w = _NO_ARRAY if sh.weights is None else np.asarray(sh.weights)
+    return np.asarray(sh.offsets), np.asarray(sh.sources), w
+
+
+def _set_threads(n: int) -> None:
+    numba.set_num_threads(max(1, min(n, numba.config.NUMBA_NUM_THREADS)))
+
+
+def power_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
+    """New scores of block ``t`` from the step's scaled scores; (scores, residual partials)."""
+    _set_threads(job.threads)
+    step = urls.parse_location(job.step_dir)
+    offsets, sources, w = _arrays(_reader(job).shard(t.index))
+    s = _vector(step_file(step, "s"))
+    r_block = np.array(_vector(step_file(step, "r", t.index)), dtype=np.float64)  # private, writable
+    part = np.zeros(n_chunks(t.n_nodes, job.chunk))
+    # first=0: the kernel indexes r_inout by first + row, and r_block holds only this block
+    gather_block(offsets, sources, w, s, 0, job.damping, t.add_uniform, t.add_teleport,
+                 _teleport_block(t), job.chunk, r_block, part)
+    return r_block, part
+
+
+def _sweep_vector(job: StepJob, step: urls.Location, block: int) -> np.ndarray:
+    """Scaled scores at the start of the sweep with blocks ``0 .. block-1`` replaced by their
+    fresh values; kept per worker and extended as the chain of block tasks moves on."""
+    with _LOCK:
+        entry = _SWEEP.get(job.step_dir)
+        if entry is None or entry[1] > block:
+            entry = (np.array(_vector(step_file(step, "s")), dtype=np.float64), 0)
+        s, applied = entry
+        for i in range(applied, block):
+            fresh = _vector(step_file(step, "fresh", i))
+            s[job.firsts[i] : job.firsts[i] + fresh.shape[0]] = fresh
+        _SWEEP.clear()  # one sweep at a time: older steps are finished
+        _SWEEP[job.step_dir] = (s, block)
+        return s
+
+
+def sweep_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Seidel update of block ``t``, seeing the fresh scores of every block before it."""
+    _set_threads(job.threads)
+    step = urls.parse_location(job.step_dir)
+    reader = _reader(job)
+    offsets, sources, w = _arrays(reader.shard(t.index))
+    s = _sweep_vector(job, step, t.index)
+    w_out = np.asarray(reader.out_weight())
+    # the kernel indexes r_inout by global id but touches only this block's rows, so a
+    # full-length buffer costs only the pages of the block (np.empty commits no memory)
+    r_full = np.empty(job.n_nodes, dtype=np.float64)
+    r_full[t.first : t.first + t.n_nodes] = _vector(step_file(step, "r", t.index))
+    part = np.zeros(n_chunks(t.n_nodes, job.chunk))
+    gather_block_fresh(offsets, sources, w, s, w_out, t.first, job.damping, t.add_uniform,
+                       t.add_teleport, _teleport_block(t), job.chunk, r_full, part)
+    return r_full[t.first : t.first + t.n_nodes].copy(), part
