@@ -8,11 +8,12 @@ from __future__ import annotations
 
 import os
 import shutil
+import tempfile
 import threading
 import time
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 
 import duckdb
@@ -22,7 +23,7 @@ import psutil
 from .. import settings
 from ..errors import BadInputError, ShardrankError
 from ..progress import Reporter
-from ..store import layout
+from ..store import layout, urls
 from ..store.manifest import StoreManifest
 from ..store.writer import StoreWriter
 from .partition import build_integer, plan_integer_build
@@ -146,7 +147,10 @@ def build_store(
     o = options or BuildOptions()
     rep = reporter or Reporter()
     _check_options(o)
-    out_p = Path(out)
+    loc = urls.parse_location(out)
+    if loc.local is None:
+        return _build_to_url(edges, loc, o, rep)
+    out_p = loc.local
     if out_p.exists() and not o.overwrite:
         raise BadInputError(f"{out_p} already exists", hint="pass --overwrite to replace it, or pick another --out")
     files = resolve_inputs([str(e) for e in edges])
@@ -165,6 +169,17 @@ def build_store(
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     rep.done()
+    return manifest
+
+
+def _build_to_url(edges: Sequence[str | os.PathLike[str]], loc: urls.Location, o: BuildOptions,
+                  rep: Reporter) -> StoreManifest:
+    """Build in a local temporary directory ($TMPDIR), then upload it (manifest last)."""
+    urls.check_writable(loc, o.overwrite)
+    with tempfile.TemporaryDirectory(prefix="shardrank-build-") as d:
+        manifest = build_store(edges, Path(d) / "store", replace(o, overwrite=False), rep)
+        rep.event("phase", f"uploading the store to {loc}...", phase="upload")
+        urls.upload_store(Path(d) / "store", loc, o.overwrite)
     return manifest
 
 
