@@ -17,9 +17,12 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 OUT = ROOT / "docs" / "cli.md"
-WIDTH = "100"  # argparse wraps help at $COLUMNS; fixed so the output does not depend on the terminal
+WIDTH = (
+    "100"  # argparse wraps help at $COLUMNS; fixed so the output does not depend on the terminal
+)
 
-PYTHON = f"{sys.version_info.major}.{sys.version_info.minor}"  # argparse's layout changes between versions
+# argparse lays out help differently between Python versions: the header records which one
+PYTHON = f"{sys.version_info.major}.{sys.version_info.minor}"
 
 HEADER = f"""\
 # CLI reference
@@ -34,7 +37,7 @@ shows them in use.
 
 
 def _subcommands(parser: argparse.ArgumentParser) -> list[tuple[str, str, argparse.ArgumentParser]]:
-    """(name, one-line help, parser) of every command, in the order `shardrank --help` lists them."""
+    """(name, one-line help, parser) of every command, in `shardrank --help` order."""
     for action in parser._actions:  # argparse has no public way to list subcommands
         if isinstance(action, argparse._SubParsersAction):
             helps = {a.dest: a.help or "" for a in action._choices_actions}
@@ -60,7 +63,9 @@ def render() -> str:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description="Write docs/cli.md from the CLI parser.")
-    ap.add_argument("--check", action="store_true", help="only check that docs/cli.md is up to date")
+    ap.add_argument(
+        "--check", action="store_true", help="only check that docs/cli.md is up to date"
+    )
     a = ap.parse_args(argv)
     text = render()
     if a.check:

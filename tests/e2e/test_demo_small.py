@@ -17,10 +17,20 @@ def test_demo_small(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     d = tmp_path / "demo"
     assert main(["demo", "--dir", str(d), "--size", "small"]) == 0
     out = capsys.readouterr().out
-    for f in ("edges.parquet", "trusted-seeds.csv", "crawl.store", "uniform.run", "seeded.run", "report.html"):
+    for f in (
+        "edges.parquet",
+        "trusted-seeds.csv",
+        "crawl.store",
+        "uniform.run",
+        "seeded.run",
+        "report.html",
+    ):
         assert (d / f).exists(), f
     assert f"Report: {(d / 'report.html').resolve()}" in out
-    assert "Top 10 pages, uniform teleport:" in out and "Top 10 pages, teleport to the trusted seeds:" in out
+    assert (
+        "Top 10 pages, uniform teleport:" in out
+        and "Top 10 pages, teleport to the trusted seeds:" in out
+    )
     # the story: the link farm lifts its shop into the uniform top 10; trusted seeds demote it
     shop = "https://miracle-gadget-shop.example/"
     uniform = top_rows(d / "uniform.run", 1, match=shop, degrees=False)[0]["position"]
@@ -36,4 +46,3 @@ def test_demo_small(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     # the commands the demo suggests work
     assert main(["top", str(d / "seeded.run"), "-k", "3", "--json"]) == 0
     assert len(json.loads(capsys.readouterr().out)) == 3
-

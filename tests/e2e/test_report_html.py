@@ -20,12 +20,12 @@ from shardrank.report import palette, write_report
 
 SCRIPT_KEY = "<script>alert(1)</script>"
 NEWLINE_KEY = "https://odd.example/a\nb"
-QUOTE_KEY = "https://odd.example/\"onmouseover=\"x"
+QUOTE_KEY = 'https://odd.example/"onmouseover="x'
 
 
 @pytest.fixture(scope="module")
 def report_pair(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path]:
-    """A graph whose two most-linked nodes have hostile keys; a report with and without --against."""
+    """A graph whose most-linked nodes have hostile keys; reports with and without --against."""
     d = tmp_path_factory.mktemp("report")
     rng = np.random.default_rng(5)
     pages = [f"https://site{i}.example/" for i in range(80)]
@@ -65,15 +65,26 @@ def test_self_contained(report_pair: tuple[Path, Path]) -> None:
         assert "Content-Security-Policy" in html and "default-src 'none'" in html
         # the only URLs are XML namespace names inside the inline SVG, which are never fetched
         urls = set(re.findall(r"https?://[^\s\"'<>)]+", html)) - {
-            "http://www.w3.org/2000/svg", "http://www.w3.org/1999/xlink",
-            "http://purl.org/dc/elements/1.1/", "http://creativecommons.org/ns#",
-            "http://www.w3.org/1999/02/22-rdf-syntax-ns#"}
+            "http://www.w3.org/2000/svg",
+            "http://www.w3.org/1999/xlink",
+            "http://purl.org/dc/elements/1.1/",
+            "http://creativecommons.org/ns#",
+            "http://www.w3.org/1999/02/22-rdf-syntax-ns#",
+        }
         assert {u for u in urls if ".example" not in u} == set()  # keys are text, not links
         assert not re.search(r"<(link|img|iframe|object|embed)\b", html)
-        assert html.count('<svg') == (2 if f.name == "plain.html" else 3)
+        assert html.count("<svg") == (2 if f.name == "plain.html" else 3)
     both = report_pair[1].read_text(encoding="utf-8")
-    for title in ("The graph", "Run options", "Convergence", "Score distribution", "Top 25",
-                  "Against the baseline", "Biggest risers", "Biggest fallers"):
+    for title in (
+        "The graph",
+        "Run options",
+        "Convergence",
+        "Score distribution",
+        "Top 25",
+        "Against the baseline",
+        "Biggest risers",
+        "Biggest fallers",
+    ):
         assert title in both
 
 
@@ -87,14 +98,33 @@ def _chromium() -> str | None:
 def _render(html: Path, tmp: Path, width: int, height: int) -> tuple[np.ndarray, str]:
     exe = _chromium()
     if exe is None:
-        pytest.skip("Debian's chromium is not installed (apt-get install chromium); .ci/run installs it")
+        pytest.skip(
+            "Debian's chromium is not installed (apt-get install chromium); .ci/run installs it"
+        )
     shot = tmp / f"{html.stem}-{width}.png"
     p = subprocess.run(
-        [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-         "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         f"--user-data-dir={tmp / 'profile'}", "--hide-scrollbars", "--enable-logging=stderr", "--v=0",
-         f"--screenshot={shot}", f"--window-size={width},{height}", html.resolve().as_uri()],
-        capture_output=True, text=True, timeout=90)
+        [
+            exe,
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--disable-quic",
+            "--no-first-run",
+            "--disable-background-networking",
+            "--disable-component-update",
+            "--disable-sync",
+            f"--user-data-dir={tmp / 'profile'}",
+            "--hide-scrollbars",
+            "--enable-logging=stderr",
+            "--v=0",
+            f"--screenshot={shot}",
+            f"--window-size={width},{height}",
+            html.resolve().as_uri(),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=90,
+    )
     assert shot.is_file(), p.stderr[-2000:]
     import matplotlib.image
 
@@ -103,19 +133,20 @@ def _render(html: Path, tmp: Path, width: int, height: int) -> tuple[np.ndarray,
 
 def _pixels_of(img: np.ndarray, hex_colour: str, tol: float = 0.12) -> int:
     """How many pixels are within ``tol`` (per channel, 0..1) of a colour."""
-    rgb = np.array([int(hex_colour[i:i + 2], 16) / 255 for i in (1, 3, 5)])
+    rgb = np.array([int(hex_colour[i : i + 2], 16) / 255 for i in (1, 3, 5)])
     return int(np.count_nonzero(np.all(np.abs(img - rgb) < tol, axis=-1)))
 
 
 # Injected into a copy of the report: all text and borders become transparent, so whatever
 # still shows the plot colours is drawn by the inline SVG (which colours itself with fill and
 # stroke, not with CSS color).
-_HIDE_TEXT = ("<style>body *{color:transparent!important;border-color:transparent!important}"
-              "</style></head>")
+_HIDE_TEXT = (
+    "<style>body *{color:transparent!important;border-color:transparent!important}</style></head>"
+)
 
 
 def _rgb(hex_colour: str) -> np.ndarray:
-    return np.array([int(hex_colour[i:i + 2], 16) / 255 for i in (1, 3, 5)])
+    return np.array([int(hex_colour[i : i + 2], 16) / 255 for i in (1, 3, 5)])
 
 
 def test_renders_in_headless_chromium(report_pair: tuple[Path, Path], tmp_path: Path) -> None:
@@ -127,7 +158,9 @@ def test_renders_in_headless_chromium(report_pair: tuple[Path, Path], tmp_path: 
     assert not_background > 0.05  # something is drawn
     # the plots themselves are visible: same page, text hidden
     bare = tmp_path / "bare.html"
-    bare.write_text(both.read_text(encoding="utf-8").replace("</head>", _HIDE_TEXT, 1), encoding="utf-8")
+    bare.write_text(
+        both.read_text(encoding="utf-8").replace("</head>", _HIDE_TEXT, 1), encoding="utf-8"
+    )
     img, _ = _render(bare, tmp_path, 1100, 5200)
     assert _pixels_of(img, palette.LINE_A) > 1000  # lines of the run (and of run A)
     assert _pixels_of(img, palette.LINE_B) > 200  # error-bound markers, run B's distribution

@@ -22,13 +22,29 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path]:
     d = tmp_path_factory.mktemp("cli")
     lines = ["src,dst"]
     for i in range(40):
-        lines += [f"paper-{i:02d},paper-{(i * 7 + 3) % 40:02d}", f"paper-{i:02d},paper-{(i * 3 + 1) % 40:02d}"]
+        lines += [
+            f"paper-{i:02d},paper-{(i * 7 + 3) % 40:02d}",
+            f"paper-{i:02d},paper-{(i * 3 + 1) % 40:02d}",
+        ]
     lines += ["=cmd|' /C calc'!A0,paper-00", "paper-05,=cmd|' /C calc'!A0"]  # a hostile key
     (d / "cites.csv").write_text("\n".join(lines) + "\n")
     (d / "seeds.csv").write_text("key,weight\npaper-01,1\n")
     assert main(["build", str(d / "cites.csv"), "--out", str(d / "s"), "-q"]) == 0
     assert main(["rank", str(d / "s"), "--out", str(d / "a.run"), "-q"]) == 0
-    assert main(["rank", str(d / "s"), "--out", str(d / "b.run"), "--teleport", str(d / "seeds.csv"), "-q"]) == 0
+    assert (
+        main(
+            [
+                "rank",
+                str(d / "s"),
+                "--out",
+                str(d / "b.run"),
+                "--teleport",
+                str(d / "seeds.csv"),
+                "-q",
+            ]
+        )
+        == 0
+    )
     return d / "a.run", d / "b.run"
 
 
@@ -54,7 +70,9 @@ def test_top_json_and_csv_are_exclusive(runs: tuple[Path, Path]) -> None:
     assert e.value.code == 2
 
 
-def test_export_then_compare(runs: tuple[Path, Path], tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_export_then_compare(
+    runs: tuple[Path, Path], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     a, b = runs
     out = tmp_path / "a.parquet"
     assert main(["export", str(a), "--out", str(out)]) == 0
@@ -62,8 +80,9 @@ def test_export_then_compare(runs: tuple[Path, Path], tmp_path: Path, capsys: py
     t = pq.read_table(out)
     assert t.column_names == ["position", "key", "score", "in_degree", "out_degree"]
     res = shardrank.open_run(a)
-    assert dict(zip(t.column("key").to_pylist(), t.column("score").to_pylist(), strict=True)) == \
-        dict(zip(res.keys.to_pylist(), res.scores.tolist(), strict=True))
+    assert dict(
+        zip(t.column("key").to_pylist(), t.column("score").to_pylist(), strict=True)
+    ) == dict(zip(res.keys.to_pylist(), res.scores.tolist(), strict=True))
     assert main(["export", str(a), "--out", str(out)]) == 2  # exists
     assert "--overwrite" in capsys.readouterr().err
     assert main(["compare", str(a), str(b), "-k", "10", "--json"]) == 0
@@ -75,7 +94,9 @@ def test_export_then_compare(runs: tuple[Path, Path], tmp_path: Path, capsys: py
     assert "L1 distance" in text and "Kendall tau" in text
 
 
-def test_report_cli_and_missing_run(runs: tuple[Path, Path], tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_report_cli_and_missing_run(
+    runs: tuple[Path, Path], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     a, b = runs
     out = tmp_path / "r.html"
     assert main(["report", str(b), "--out", str(out), "--against", str(a), "-q"]) == 0
@@ -87,7 +108,16 @@ def test_report_cli_and_missing_run(runs: tuple[Path, Path], tmp_path: Path, cap
 
 def test_subprocess_top(runs: tuple[Path, Path]) -> None:
     exe = Path(sys.executable).with_name("shardrank")  # the console script next to this Python
-    cmd = [str(exe)] if exe.exists() else [sys.executable, "-c", "from shardrank.cli.main import entry; entry()"]
-    p = subprocess.run([*cmd, "top", str(runs[0]), "-k", "2", "--json"], capture_output=True, text=True, timeout=120)
+    cmd = (
+        [str(exe)]
+        if exe.exists()
+        else [sys.executable, "-c", "from shardrank.cli.main import entry; entry()"]
+    )
+    p = subprocess.run(
+        [*cmd, "top", str(runs[0]), "-k", "2", "--json"],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert p.returncode == 0, p.stderr
     assert len(json.loads(p.stdout)) == 2

@@ -14,7 +14,9 @@ ROOT = Path(__file__).resolve().parents[2]
 
 
 def _generator():  # type: ignore[no-untyped-def]
-    spec = importlib.util.spec_from_file_location("gen_cli_docs", ROOT / "scripts" / "gen_cli_docs.py")
+    spec = importlib.util.spec_from_file_location(
+        "gen_cli_docs", ROOT / "scripts" / "gen_cli_docs.py"
+    )
     assert spec and spec.loader
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
@@ -28,10 +30,13 @@ def test_cli_reference_is_up_to_date(monkeypatch: pytest.MonkeyPatch) -> None:
     assert m, "docs/cli.md has no generator header: run scripts/gen_cli_docs.py"
     here = f"{sys.version_info.major}.{sys.version_info.minor}"
     if m[1] != here:
-        pytest.skip(f"docs/cli.md was generated with Python {m[1]}; argparse lays out help "
-                    f"differently on {here}")
+        pytest.skip(
+            f"docs/cli.md was generated with Python {m[1]}; argparse lays out help "
+            f"differently on {here}"
+        )
     assert _generator().render() == committed, (
-        "docs/cli.md is out of date: run `.venv/bin/python scripts/gen_cli_docs.py` and commit it")
+        "docs/cli.md is out of date: run `.venv/bin/python scripts/gen_cli_docs.py` and commit it"
+    )
 
 
 def test_every_command_is_documented() -> None:

@@ -33,7 +33,8 @@ def test_hand_worked_reversal_with_new_and_vanished_keys() -> None:
     a = mem(["a", "b", "c", "d"], [0.4, 0.3, 0.2, 0.1])
     b = mem(["a", "b", "c", "e"], [0.1, 0.2, 0.3, 0.4])
     s = compare_runs(a, b, k=2)
-    # L1 by hand: |.4-.1| + |.3-.2| + |.2-.3| + |.1-0| (d absent in B) + |0-.4| (e absent in A) = 1.0
+    # L1 by hand: |.4-.1| + |.3-.2| + |.2-.3| + |.1-0| (d absent in B) + |0-.4| (e absent in A)
+    # = .3 + .1 + .1 + .1 + .4 = 1.0
     assert s["l1"] == pytest.approx(1.0, abs=1e-15)
     assert (s["new_keys"], s["vanished_keys"], s["common_keys"]) == (1, 1, 3)
     # top-2: A {a, b}, B {e, c}; union {a, b, c, e}; scores (A, B): a (.4,.1) b (.3,.2) c (.2,.3)
@@ -46,7 +47,10 @@ def test_hand_worked_reversal_with_new_and_vanished_keys() -> None:
     assert s["overlap"] == {"2": 0.0, "10": 0.75, "100": 0.75, "1000": 0.75}
     # positions A: a1 b2 c3 d4; B: e1 c2 b3 a4 -> c rose 3->2; a fell 1->4, b fell 2->3
     assert [(r["key"], r["position_a"], r["position_b"]) for r in s["risers"]] == [("c", 3, 2)]
-    assert [(r["key"], r["position_a"], r["position_b"]) for r in s["fallers"]] == [("a", 1, 4), ("b", 2, 3)]
+    assert [(r["key"], r["position_a"], r["position_b"]) for r in s["fallers"]] == [
+        ("a", 1, 4),
+        ("b", 2, 3),
+    ]
     assert s["new_in_top_k"] == [{"key": "e", "position_b": 1, "score_b": 0.4}]
     json.dumps(s, allow_nan=False)  # the nightly job stores this as strict JSON
 
@@ -89,8 +93,10 @@ def test_identical_runs() -> None:
     assert set(s["overlap"].values()) == {1.0}
 
 
-def _reference(ka: list[str], sa: np.ndarray, kb: list[str], sb: np.ndarray, k: int) -> dict[str, Any]:
-    """The same quantities with plain Python dicts and sorts, and scipy.stats for the correlations."""
+def _reference(
+    ka: list[str], sa: np.ndarray, kb: list[str], sb: np.ndarray, k: int
+) -> dict[str, Any]:
+    """The same quantities with plain dicts and sorts, and scipy.stats for the correlations."""
     da, db = dict(zip(ka, sa.tolist(), strict=True)), dict(zip(kb, sb.tolist(), strict=True))
     keys = set(da) | set(db)
     l1 = math.fsum(abs(da.get(x, 0.0) - db.get(x, 0.0)) for x in keys)
@@ -104,8 +110,14 @@ def _reference(ka: list[str], sa: np.ndarray, kb: list[str], sb: np.ndarray, k: 
     for kk in (10, 100, 1000, k):
         c = min(kk, len(da), len(db))
         overlap[str(kk)] = len(set(order_a[:c]) & set(order_b[:c])) / c
-    return {"l1": l1, "kendall_tau": tau, "spearman_rho": rho, "overlap": overlap,
-            "new_keys": len(set(db) - set(da)), "vanished_keys": len(set(da) - set(db))}
+    return {
+        "l1": l1,
+        "kendall_tau": tau,
+        "spearman_rho": rho,
+        "overlap": overlap,
+        "new_keys": len(set(db) - set(da)),
+        "vanished_keys": len(set(da) - set(db)),
+    }
 
 
 @pytest.mark.parametrize(("seed", "similar"), [(1, False), (2, False), (3, True)])

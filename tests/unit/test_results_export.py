@@ -18,8 +18,19 @@ from shardrank.results.export import FORMULA_STARTS, export_run, spreadsheet_saf
 
 # Keys a crawl can really contain. The first five would run as formulas in a spreadsheet
 # (OWASP "CSV Injection" lists = + - @ tab and carriage return as the dangerous first characters).
-TRICKY = ["=HYPERLINK(\"http://evil.example\")", "+1+1", "-2+3", "@SUM(A1)", "\tcell", "\rcell",
-          "'quoted", "plain,with comma", "line\nbreak", "<script>alert(1)</script>", "ünïcode"]
+TRICKY = [
+    '=HYPERLINK("http://evil.example")',
+    "+1+1",
+    "-2+3",
+    "@SUM(A1)",
+    "\tcell",
+    "\rcell",
+    "'quoted",
+    "plain,with comma",
+    "line\nbreak",
+    "<script>alert(1)</script>",
+    "ünïcode",
+]
 
 
 @pytest.fixture
@@ -40,14 +51,27 @@ def _expected(run: Path, store: Path) -> list[dict[str, Any]]:
     keys, scores = res.keys.to_pylist(), res.scores.tolist()
     ind, outd = reader.in_degree().tolist(), reader.out_degree().tolist()
     order = sorted(range(len(keys)), key=lambda i: (-scores[i], keys[i]))
-    return [{"position": p, "key": keys[i], "score": scores[i], "in_degree": ind[i], "out_degree": outd[i]}
-            for p, i in enumerate(order, 1)]
+    return [
+        {
+            "position": p,
+            "key": keys[i],
+            "score": scores[i],
+            "in_degree": ind[i],
+            "out_degree": outd[i],
+        }
+        for p, i in enumerate(order, 1)
+    ]
 
 
 def test_parquet_equals_the_result(run: tuple[Path, Path], tmp_path: Path) -> None:
     out = tmp_path / "scores.parquet"
     info = export_run(run[0], out)
-    assert info == {"path": str(out), "format": "parquet", "rows": len(TRICKY) + 60, "escaped_keys": 0}
+    assert info == {
+        "path": str(out),
+        "format": "parquet",
+        "rows": len(TRICKY) + 60,
+        "escaped_keys": 0,
+    }
     got = pq.read_table(out).to_pylist()
     assert got == _expected(*run)  # exact: keys untouched, scores bit for bit
     # the documented DuckDB query works on the file as written
@@ -57,27 +81,42 @@ def test_parquet_equals_the_result(run: tuple[Path, Path], tmp_path: Path) -> No
 
 
 @pytest.mark.parametrize("name", ["scores.csv", "scores.csv.gz"])
-def test_csv_is_spreadsheet_safe_and_reversible(run: tuple[Path, Path], tmp_path: Path, name: str) -> None:
+def test_csv_is_spreadsheet_safe_and_reversible(
+    run: tuple[Path, Path], tmp_path: Path, name: str
+) -> None:
     out = tmp_path / name
     info = export_run(run[0], out)
     assert info["escaped_keys"] == 7  # the six formula starts and the apostrophe
-    rows = duckdb.sql(f"SELECT * FROM read_csv('{out}', header=true, quote='\"', all_varchar=true) "
-                      "ORDER BY position::BIGINT").fetchall()
+    rows = duckdb.sql(
+        f"SELECT * FROM read_csv('{out}', header=true, quote='\"', all_varchar=true) "
+        "ORDER BY position::BIGINT"
+    ).fetchall()
     want = _expected(*run)
     assert len(rows) == len(want)
     for (pos, key, score, ind, outd), w in zip(rows, want, strict=True):
         assert not key.startswith(FORMULA_STARTS)  # nothing a spreadsheet would run
         original = key[1:] if key.startswith("'") else key  # the documented way back
         assert original == w["key"]
-        assert (int(pos), float(score), int(ind), int(outd)) == (w["position"], w["score"], w["in_degree"], w["out_degree"])
+        assert (int(pos), float(score), int(ind), int(outd)) == (
+            w["position"],
+            w["score"],
+            w["in_degree"],
+            w["out_degree"],
+        )
 
 
-def test_csv_quotes_every_key_so_newlines_and_commas_survive(run: tuple[Path, Path], tmp_path: Path) -> None:
+def test_csv_quotes_every_key_so_newlines_and_commas_survive(
+    run: tuple[Path, Path], tmp_path: Path
+) -> None:
     out = tmp_path / "s.csv"
     export_run(run[0], out)
     rows = list(csv.DictReader(io.StringIO(out.read_text(encoding="utf-8"), newline="")))
     keys = {r["key"] for r in rows}
-    assert "line\nbreak" in keys and "plain,with comma" in keys and "'=HYPERLINK(\"http://evil.example\")" in keys
+    assert (
+        "line\nbreak" in keys
+        and "plain,with comma" in keys
+        and '\'=HYPERLINK("http://evil.example")' in keys
+    )
 
 
 def test_spreadsheet_safe() -> None:

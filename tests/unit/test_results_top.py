@@ -13,10 +13,24 @@ import shardrank
 from shardrank.errors import BadInputError
 from shardrank.results.top import positions, positions_of, top_rows
 
-SRC = ["https://a.example/", "https://a.example/x", "https://b.example/", "https://c.example/",
-       "https://c.example/", "https://d.example/y", "https://a.example/x"]
-DST = ["https://b.example/", "https://b.example/", "https://a.example/", "https://a.example/",
-       "https://b.example/", "https://a.example/", "https://b.example/"]  # last row duplicates row 2
+SRC = [
+    "https://a.example/",
+    "https://a.example/x",
+    "https://b.example/",
+    "https://c.example/",
+    "https://c.example/",
+    "https://d.example/y",
+    "https://a.example/x",
+]
+DST = [
+    "https://b.example/",
+    "https://b.example/",
+    "https://a.example/",
+    "https://a.example/",
+    "https://b.example/",
+    "https://a.example/",
+    "https://b.example/",
+]  # last row duplicates row 2
 
 
 @pytest.fixture
@@ -46,7 +60,9 @@ def test_top_rows_order_scores_and_degrees(run: Path) -> None:
     rows = top_rows(run, k=100)
     assert len(rows) == res.n_nodes == 5
     assert [r["position"] for r in rows] == list(range(1, 6))
-    want = sorted(zip(res.keys.to_pylist(), res.scores.tolist(), strict=True), key=lambda t: (-t[1], t[0]))
+    want = sorted(
+        zip(res.keys.to_pylist(), res.scores.tolist(), strict=True), key=lambda t: (-t[1], t[0])
+    )
     assert [(r["key"], r["score"]) for r in rows] == want
     # degrees from networkx on the same edge list (a DiGraph merges the duplicate edge)
     g = nx.DiGraph(zip(SRC, DST, strict=True))
@@ -60,7 +76,9 @@ def test_match_glob_and_substring(run: Path) -> None:
     rows = top_rows(run, k=10, match="https://a.example/*")
     assert {r["key"] for r in rows} == {"https://a.example/", "https://a.example/x"}
     assert all(r["position"] == full[r["key"]] for r in rows)  # positions in the whole run
-    assert [r["key"] for r in top_rows(run, k=10, match="/y")] == ["https://d.example/y"]  # substring
+    assert [r["key"] for r in top_rows(run, k=10, match="/y")] == [
+        "https://d.example/y"
+    ]  # substring
     assert top_rows(run, k=1, match="example")[0]["position"] == 1
     assert top_rows(run, k=5, match="nothing-like-this") == []
     assert "in_degree" not in top_rows(run, k=2, degrees=False)[0]

@@ -87,16 +87,22 @@ def print_comparison(s: dict[str, Any]) -> None:
     print(f"B: {safe_text(s['b'])} ({s['n_b']:,} keys)")
     print(f"keys:         {s['common_keys']:,} in both, {s['new_keys']:,} new in B, "
           f"{s['vanished_keys']:,} vanished from A")
-    print(f"L1 distance:  {s['l1']:.4e} (0 = identical, 2 = disjoint); largest single change {s['max_abs_diff']:.3e}")
+    print(f"L1 distance:  {s['l1']:.4e} (0 = identical, 2 = disjoint); "
+          f"largest single change {s['max_abs_diff']:.3e}")
     print(f"overlap:      {ov}")
-    print(f"over the union of both top {s['k']:,} ({s['union_top_k']:,} keys): Kendall tau "
-          f"{'n/a' if tau is None else f'{tau:.4f}'}, Spearman rho {'n/a' if rho is None else f'{rho:.4f}'}")
+    tau_s = "n/a" if tau is None else f"{tau:.4f}"
+    rho_s = "n/a" if rho is None else f"{rho:.4f}"
+    print(f"over the union of both top {s['k']:,} ({s['union_top_k']:,} keys): "
+          f"Kendall tau {tau_s}, Spearman rho {rho_s}")
     for title, key in (("biggest risers", "risers"), ("biggest fallers", "fallers")):
         rows = s[key][:10]
         print(f"{title} (position in A -> B):" if rows else f"{title}: none")
         for r in rows:
             d = r["position_a"] - r["position_b"]
-            print(f"  {d:>+9,}  {r['position_a']:>9,} -> {r['position_b']:<9,}  {safe_text(r['key'], 90)}")
-    if s["new_in_top_k"]:
-        print(f"new keys in B's top {s['k']:,}: {len(s['new_in_top_k'])}"
-              f"{'+' if len(s['new_in_top_k']) >= 20 else ''}, e.g. {safe_text(s['new_in_top_k'][0]['key'], 90)}")
+            moved = f"{r['position_a']:>9,} -> {r['position_b']:<9,}"
+            print(f"  {d:>+9,}  {moved}  {safe_text(r['key'], 90)}")
+    new = s["new_in_top_k"]
+    if new:
+        more = "+" if len(new) >= 20 else ""
+        example = safe_text(new[0]["key"], 90)
+        print(f"new keys in B's top {s['k']:,}: {len(new)}{more}, e.g. {example}")

@@ -43,20 +43,36 @@ def run_demo(directory: str | Path, size: str, rep: Reporter, quiet: bool, out: 
 
     say(f"Inventing a web crawl ({size}) in {d}/ ...")
     sc = generate(d, size)
-    say(f"  {sc.n_pages:,} pages on {sc.n_hosts:,} hosts, {sc.n_links:,} links, PDFs that link nowhere,")
-    say(f"  a link farm of {len(sc.farm_pages):,} pages on {sc.n_farm_hosts} hosts that all point at one shop,")
+    say(
+        f"  {sc.n_pages:,} pages on {sc.n_hosts:,} hosts, {sc.n_links:,} links, "
+        "PDFs that link nowhere,"
+    )
+    say(
+        f"  a link farm of {len(sc.farm_pages):,} pages on {sc.n_farm_hosts} hosts "
+        "that all point at one shop,"
+    )
     say(f"  and {sc.seeds.name}: the home pages of {sc.n_seeds} trusted hosts")
     store = d / "crawl.store"
-    m = api.build_store([sc.edges], store, BuildOptions(overwrite=True, block_nodes=BLOCK_NODES), rep)
-    say(f"Built {store}: {m.n_nodes:,} nodes, {m.n_edges:,} edges, {m.counts['dead_ends']:,} dead ends, "
-        f"{len(m.blocks)} shards")
+    m = api.build_store(
+        [sc.edges], store, BuildOptions(overwrite=True, block_nodes=BLOCK_NODES), rep
+    )
+    say(
+        f"Built {store}: {m.n_nodes:,} nodes, {m.n_edges:,} edges, "
+        f"{m.counts['dead_ends']:,} dead ends, {len(m.blocks)} shards"
+    )
     plain = api.rank(store, d / "uniform.run", RankOptions(), rep, overwrite=True)
-    seeded = api.rank(store, d / "seeded.run", RankOptions(teleport=str(sc.seeds)), rep, overwrite=True)
-    say(f"Ranked twice (damping {RankOptions().damping}, stopping when the L1 error is provably "
-        f"<= {RankOptions().tol:g}):")
+    seeded = api.rank(
+        store, d / "seeded.run", RankOptions(teleport=str(sc.seeds)), rep, overwrite=True
+    )
+    say(
+        f"Ranked twice (damping {RankOptions().damping}, stopping when the L1 error is provably "
+        f"<= {RankOptions().tol:g}):"
+    )
     for name, res in (("uniform teleport", plain), ("teleport to the trusted seeds", seeded)):
-        say(f"  {name + ':':<31}{res.iterations} iterations, L1 error bound {res.error_bound:.1e}, "
-            f"{res.summary['timings']['iterate_seconds']:.1f} s")
+        say(
+            f"  {name + ':':<31}{res.iterations} iterations, L1 error bound {res.error_bound:.1e}, "
+            f"{res.summary['timings']['iterate_seconds']:.1f} s"
+        )
     for name, res in (("uniform teleport", plain), ("teleport to the trusted seeds", seeded)):
         say()
         say(f"Top {N_SHOWN} pages, {name}:")
@@ -89,14 +105,19 @@ def _demoted(sc: Scenario, plain: RankResult, seeded: RankResult, say: Any) -> N
     say("What the seeded teleport demoted:")
     say(f"  the promoted shop {sc.promoted}")
     say(f"    position {pos_a:,} with a uniform teleport, {pos_b:,} with trusted seeds")
-    say(f"  the link farm and its shop ({farm_ids.size:,} pages, {farm_ids.size / plain.n_nodes:.1%} of all pages)")
-    say(f"    hold {plain.scores[farm_ids].sum():.2%} of all score with a uniform teleport, "
-        f"{seeded.scores[farm_ids].sum():.4%} with trusted seeds")
+    share = farm_ids.size / plain.n_nodes
+    say(f"  the link farm and its shop ({farm_ids.size:,} pages, {share:.1%} of all pages)")
+    say(
+        f"    hold {plain.scores[farm_ids].sum():.2%} of all score with a uniform teleport, "
+        f"{seeded.scores[farm_ids].sum():.4%} with trusted seeds"
+    )
     cmp = compare_runs(plain, seeded, k=100)
     fell = [r for r in cmp["fallers"] if r["position_a"] <= 100][:N_DEMOTED]
     if fell:
         say("  the pages of the uniform top 100 that fell furthest:")
         for r in fell:
             say(f"    {r['position_a']:>5,} -> {r['position_b']:<7,} {_cut(r['key'])}")
-    say(f"  top-10 overlap of the two runs {cmp['overlap']['10']:.0%}, top-100 {cmp['overlap']['100']:.0%}; "
-        f"L1 distance {cmp['l1']:.2f}")
+    say(
+        f"  top-10 overlap of the two runs {cmp['overlap']['10']:.0%}, "
+        f"top-100 {cmp['overlap']['100']:.0%}; L1 distance {cmp['l1']:.2f}"
+    )

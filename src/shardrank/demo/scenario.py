@@ -16,11 +16,53 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-_A = ["amber", "birch", "cobalt", "dune", "ember", "fable", "garnet", "harbor", "iris", "juniper",
-      "kestrel", "lumen", "maple", "nimbus", "orchid", "pebble", "quill", "rowan", "sable", "thistle",
-      "umber", "vesper", "willow", "yarrow", "zephyr"]
-_B = ["works", "press", "forge", "garden", "labs", "market", "notes", "atlas", "guild", "depot",
-      "journal", "studio", "archive", "commons", "outpost", "bakery", "foundry", "circle"]
+_A = [
+    "amber",
+    "birch",
+    "cobalt",
+    "dune",
+    "ember",
+    "fable",
+    "garnet",
+    "harbor",
+    "iris",
+    "juniper",
+    "kestrel",
+    "lumen",
+    "maple",
+    "nimbus",
+    "orchid",
+    "pebble",
+    "quill",
+    "rowan",
+    "sable",
+    "thistle",
+    "umber",
+    "vesper",
+    "willow",
+    "yarrow",
+    "zephyr",
+]
+_B = [
+    "works",
+    "press",
+    "forge",
+    "garden",
+    "labs",
+    "market",
+    "notes",
+    "atlas",
+    "guild",
+    "depot",
+    "journal",
+    "studio",
+    "archive",
+    "commons",
+    "outpost",
+    "bakery",
+    "foundry",
+    "circle",
+]
 SIZES = {"small": (400, 20), "medium": (3500, 20)}  # hosts, mean pages per host
 FARM = {"small": (40, 15), "medium": (150, 20)}  # link-farm hosts, pages per farm host
 
@@ -55,12 +97,17 @@ def generate(out_dir: Path, size: str = "small", seed: int = 20261202) -> Scenar
     rng = np.random.default_rng(seed)
     n_hosts, mean_pages = SIZES[size]
     hosts = _host_names(rng, n_hosts)
-    pages_per_host = np.maximum(2, rng.zipf(1.8, n_hosts).clip(max=40 * mean_pages) * mean_pages // 4)
+    pages_per_host = np.maximum(
+        2, rng.zipf(1.8, n_hosts).clip(max=40 * mean_pages) * mean_pages // 4
+    )
     popularity = rng.pareto(1.2, n_hosts) + 1.0
     popularity /= popularity.sum()
     urls: list[list[str]] = []
     for h, n in zip(hosts, pages_per_host.tolist(), strict=True):
-        paths = ["/"] + [f"/{'docs' if i % 7 == 0 else 'post'}/{i}{'.pdf' if i % 11 == 0 else ''}" for i in range(1, n)]
+        paths = ["/"] + [
+            f"/{'docs' if i % 7 == 0 else 'post'}/{i}{'.pdf' if i % 11 == 0 else ''}"
+            for i in range(1, n)
+        ]
         urls.append([f"https://{h}{p}" for p in paths])
     # Links by global page number (vectorised: the medium crawl has ~10^6 links).
     n_of = pages_per_host.astype(np.int64)
@@ -71,7 +118,9 @@ def generate(out_dir: Path, size: str = "small", seed: int = 20261202) -> Scenar
     page = np.flatnonzero(live)
     up = page[local[page] > 0]  # every page but the home page links home
     parts_src, parts_dst = [up], [base[host[up]]]
-    inner = (rng.random((page.size, 3)) * n_of[host[page]][:, None]).astype(np.int64)  # 3 links within the host
+    inner = (rng.random((page.size, 3)) * n_of[host[page]][:, None]).astype(
+        np.int64
+    )  # 3 links within the host
     keep = inner != local[page][:, None]
     parts_src.append(np.repeat(page, 3)[keep.ravel()])
     parts_dst.append((base[host[page]][:, None] + inner)[keep])
@@ -87,8 +136,11 @@ def generate(out_dir: Path, size: str = "small", seed: int = 20261202) -> Scenar
     # the link farm: every farm page links to the promoted shop and to two other farm pages;
     # the shop links back into the farm, so the farm keeps what flows in
     n_fh, per_host = FARM[size]
-    farm = [f"https://best-deals-{h:03d}.example/{'' if p == 0 else f'offer/{p}'}"
-            for h in range(n_fh) for p in range(per_host)]
+    farm = [
+        f"https://best-deals-{h:03d}.example/{'' if p == 0 else f'offer/{p}'}"
+        for h in range(n_fh)
+        for p in range(per_host)
+    ]
     promoted = "https://miracle-gadget-shop.example/"
     for i, f in enumerate(farm):
         for j in (i + 1, i + 7):
@@ -102,8 +154,8 @@ def generate(out_dir: Path, size: str = "small", seed: int = 20261202) -> Scenar
     # spam comments on deep pages of obscure honest hosts (the less popular half)
     obscure = np.argsort(popularity)[: n_hosts // 2]
     for _ in range(12):
-        h = urls[int(rng.choice(obscure))]
-        src.append(h[int(rng.integers(1, len(h)))])
+        victim = urls[int(rng.choice(obscure))]
+        src.append(victim[int(rng.integers(1, len(victim)))])
         dst.append(farm[int(rng.integers(0, len(farm)))])
     out_dir.mkdir(parents=True, exist_ok=True)
     edges = out_dir / "edges.parquet"

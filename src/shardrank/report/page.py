@@ -76,15 +76,19 @@ footer {{ margin-top: 2.5rem; padding-top: .6rem; border-top: 1px solid var(--ru
   h2, h3 {{ break-after: avoid; }}
   .scroll {{ overflow: visible; }}
 }}
-"""
+"""  # noqa: E501 (CSS reads better one rule a line)
 
 
 def visible(value: Any) -> str:
     """``str(value)`` with control characters written as escapes (``\\n``, ``\\x1b``...)."""
     t = str(value)
     if any(ord(c) < 32 or 127 <= ord(c) < 160 or c in "\u2028\u2029" for c in t):
-        t = "".join(c if not (ord(c) < 32 or 127 <= ord(c) < 160 or c in "\u2028\u2029")
-                    else c.encode("unicode_escape").decode("ascii") for c in t)
+        t = "".join(
+            c
+            if not (ord(c) < 32 or 127 <= ord(c) < 160 or c in "\u2028\u2029")
+            else c.encode("unicode_escape").decode("ascii")
+            for c in t
+        )
     return t
 
 
@@ -106,7 +110,9 @@ def _keep_whole(v: str) -> str:
 
 def facts(items: Iterable[tuple[str, str]]) -> str:
     """A definition list of (label, already-escaped value) pairs."""
-    rows = "".join(f"<div><dt>{html.escape(k)}</dt><dd>{_keep_whole(v)}</dd></div>" for k, v in items)
+    rows = "".join(
+        f"<div><dt>{html.escape(k)}</dt><dd>{_keep_whole(v)}</dd></div>" for k, v in items
+    )
     return f'<dl class="facts">{rows}</dl>'
 
 
@@ -114,10 +120,13 @@ def table(head: Sequence[tuple[str, str]], rows: Iterable[Sequence[str]]) -> str
     """A table; ``head`` is (title, css class) pairs, cells are already-escaped markup."""
     th = "".join(f'<th class="{c}" scope="col">{html.escape(t)}</th>' for t, c in head)
     body = "".join(
-        "<tr>" + "".join(f'<td class="{c}">{cell}</td>' for (_, c), cell in zip(head, r, strict=True)) + "</tr>"
+        "<tr>"
+        + "".join(f'<td class="{c}">{cell}</td>' for (_, c), cell in zip(head, r, strict=True))
+        + "</tr>"
         for r in rows
     )
-    return f'<div class="scroll"><table><thead><tr>{th}</tr></thead><tbody>{body}</tbody></table></div>'
+    table = f"<table><thead><tr>{th}</tr></thead><tbody>{body}</tbody></table>"
+    return f'<div class="scroll">{table}</div>'
 
 
 def figure(svg: str, caption: str) -> str:
@@ -126,12 +135,15 @@ def figure(svg: str, caption: str) -> str:
 
 
 def section(no: int, anchor: str, title: str, body: str) -> str:
-    return (f'<section id="{anchor}"><h2><span class="no">{no}</span>{html.escape(title)}</h2>'
-            f"{body}</section>")
+    return (
+        f'<section id="{anchor}"><h2><span class="no">{no}</span>{html.escape(title)}</h2>'
+        f"{body}</section>"
+    )
 
 
-def document(title: str, head: str, toc: Sequence[tuple[str, str]], sections: Sequence[str],
-             footer: str) -> str:
+def document(
+    title: str, head: str, toc: Sequence[tuple[str, str]], sections: Sequence[str], footer: str
+) -> str:
     """The whole page. ``title`` is untrusted; ``head``, ``sections``, ``footer`` are markup."""
     nav = " ".join(f'<a href="#{a}">{html.escape(t)}</a>' for a, t in toc)  # spaces: lines may wrap
     return (
@@ -140,6 +152,7 @@ def document(title: str, head: str, toc: Sequence[tuple[str, str]], sections: Se
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
         f'<meta http-equiv="Content-Security-Policy" content="{CSP}">'
         f"<title>{text(title)}</title><style>{CSS}</style></head>"
-        f'<body><div class="wrap"><header class="masthead">{head}<nav class="toc">{nav}</nav></header>'
+        f'<body><div class="wrap"><header class="masthead">{head}'
+        f'<nav class="toc">{nav}</nav></header>'
         f"<main>{''.join(sections)}</main><footer>{footer}</footer></div></body></html>\n"
     )

@@ -25,7 +25,7 @@ _BINS = 240  # log-spaced bins of score x N for the distribution plot
 # nodes it cannot reach with scores near 1e-80; drawn, they would squash the readable part.
 FLOOR_X_N = 1e-4
 
-_STYLE = {
+_STYLE: Any = {  # Any: matplotlib types rc keys as a Literal union
     "font.size": 9.0,
     "axes.edgecolor": palette.RULE,
     "axes.labelcolor": palette.INK,
@@ -56,18 +56,24 @@ def to_svg(fig: Figure, name: str, label: str) -> str:
     with matplotlib.rc_context({**_STYLE, "svg.hashsalt": f"shardrank-{name}"}):
         fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
     svg = buf.getvalue()
-    svg = svg[svg.index("<svg"):]
+    svg = svg[svg.index("<svg") :]
     svg = re.sub(r"<metadata>.*?</metadata>", "", svg, count=1, flags=re.S)  # RDF boilerplate
     # fixed pt sizes -> scale with the page; the viewBox keeps the aspect ratio
-    svg = re.sub(r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
-                 rf'<svg\1 class="plot" role="img" aria-label="{html.escape(label)}"', svg, count=1)
+    svg = re.sub(
+        r'<svg([^>]*?) width="[^"]*" height="[^"]*"',
+        rf'<svg\1 class="plot" role="img" aria-label="{html.escape(label)}"',
+        svg,
+        count=1,
+    )
     return svg
 
 
 def convergence(history: dict[str, Sequence[Any]], tol: float) -> str:
     """Residual of every step and the guaranteed L1 error bound where a power step measured it."""
     res = np.array([np.nan if v is None else v for v in history.get("residual", [])], dtype=float)
-    bnd = np.array([np.nan if v is None else v for v in history.get("error_bound", [])], dtype=float)
+    bnd = np.array(
+        [np.nan if v is None else v for v in history.get("error_bound", [])], dtype=float
+    )
     steps = list(history.get("step", [])) or ["power"] * res.size
     it = np.arange(1, res.size + 1)
     with matplotlib.rc_context(_STYLE):
@@ -81,8 +87,16 @@ def convergence(history: dict[str, Sequence[Any]], tol: float) -> str:
             ax.plot(it[power], res[power], "o", ms=3.5, color=palette.LINE_A, label="power step")
         okb = np.isfinite(bnd) & (bnd > 0)
         if okb.any():
-            ax.plot(it[okb], bnd[okb], "D", ms=4.5, mfc="none", mew=1.2, color=palette.LINE_B,
-                    label="guaranteed L1 error bound")
+            ax.plot(
+                it[okb],
+                bnd[okb],
+                "D",
+                ms=4.5,
+                mfc="none",
+                mew=1.2,
+                color=palette.LINE_B,
+                label="guaranteed L1 error bound",
+            )
         if tol > 0:
             ax.axhline(tol, color=palette.MUTED, lw=1.0, ls=(0, (4, 3)), label=f"tolerance {tol:g}")
         ax.xaxis.set_major_locator(MaxNLocator(integer=True))
@@ -92,8 +106,9 @@ def convergence(history: dict[str, Sequence[Any]], tol: float) -> str:
     return to_svg(fig, "convergence", "residual and error bound per iteration, log scale")
 
 
-def ccdf_points(scores: np.ndarray, bins: int = _BINS,
-                floor: float = FLOOR_X_N) -> tuple[np.ndarray, np.ndarray, float]:
+def ccdf_points(
+    scores: np.ndarray, bins: int = _BINS, floor: float = FLOOR_X_N
+) -> tuple[np.ndarray, np.ndarray, float]:
     """x = score x N at log-spaced edges, y = share of nodes with score x N >= x.
 
     Reads ``scores`` in chunks (it may be a memory map). Scores below ``floor`` times the
@@ -103,7 +118,7 @@ def ccdf_points(scores: np.ndarray, bins: int = _BINS,
     lo, hi = np.inf, 0.0
     below = 0
     for s in range(0, n, _CHUNK):
-        c = np.asarray(scores[s:s + _CHUNK]) * n
+        c = np.asarray(scores[s : s + _CHUNK]) * n
         keep = c >= floor
         below += int(c.size - np.count_nonzero(keep))
         c = c[keep]
@@ -114,7 +129,7 @@ def ccdf_points(scores: np.ndarray, bins: int = _BINS,
     edges = np.geomspace(lo, hi, bins + 1) if hi > lo else np.array([lo, lo * (1 + 1e-9)])
     counts = np.zeros(edges.size - 1, dtype=np.int64)
     for s in range(0, n, _CHUNK):
-        c = np.asarray(scores[s:s + _CHUNK]) * n
+        c = np.asarray(scores[s : s + _CHUNK]) * n
         counts += np.histogram(c[c >= floor], bins=edges)[0]
     at_least = counts[::-1].cumsum()[::-1]  # nodes in this bin or above
     return edges[:-1], at_least / n, below / n
@@ -143,8 +158,15 @@ def distribution(runs: Sequence[tuple[str, np.ndarray]]) -> tuple[str, list[floa
     return to_svg(fig, "distribution", "complementary CDF of score times N, log-log"), below
 
 
-def rank_scatter(pos_a: Sequence[int | None], pos_b: Sequence[int | None], n_a: int, n_b: int,
-                 k: int, label_a: str = "A", label_b: str = "B") -> str:
+def rank_scatter(
+    pos_a: Sequence[int | None],
+    pos_b: Sequence[int | None],
+    n_a: int,
+    n_b: int,
+    k: int,
+    label_a: str = "A",
+    label_b: str = "B",
+) -> str:
     """Position in run A against position in run B for the union of both top-k (log-log).
 
     Keys missing from one run sit on a band just past the other's top-k, drawn hollow.
@@ -160,22 +182,46 @@ def rank_scatter(pos_a: Sequence[int | None], pos_b: Sequence[int | None], n_a: 
         ax.set_xscale("log")
         ax.set_yscale("log")
         lim = max(edge_a, edge_b) * 1.3
-        ax.plot([1, lim], [1, lim], color=palette.MUTED, lw=1.0, ls=(0, (4, 3)), label="same position")
+        ax.plot(
+            [1, lim], [1, lim], color=palette.MUTED, lw=1.0, ls=(0, (4, 3)), label="same position"
+        )
         ax.axvspan(k, lim, color=palette.SHADE, lw=0)
         ax.axhspan(k, lim, color=palette.SHADE, lw=0)
-        ax.plot(a[both], b[both], "o", ms=3.0, alpha=0.7, color=palette.LINE_A, mew=0,
-                label="in both runs")
+        ax.plot(
+            a[both],
+            b[both],
+            "o",
+            ms=3.0,
+            alpha=0.7,
+            color=palette.LINE_A,
+            mew=0,
+            label="in both runs",
+        )
         only_a = np.isfinite(a) & ~np.isfinite(b)
         only_b = np.isfinite(b) & ~np.isfinite(a)
         if only_a.any() or only_b.any():
-            ax.plot(np.r_[a[only_a], np.full(only_b.sum(), edge_a)],
-                    np.r_[np.full(only_a.sum(), edge_b), b[only_b]],
-                    "o", ms=4.0, mfc="none", color=palette.LINE_B, label="in one run only")
+            ax.plot(
+                np.r_[a[only_a], np.full(only_b.sum(), edge_a)],
+                np.r_[np.full(only_a.sum(), edge_b), b[only_b]],
+                "o",
+                ms=4.0,
+                mfc="none",
+                color=palette.LINE_B,
+                label="in one run only",
+            )
         ax.set_xlim(0.8, lim)
         ax.set_ylim(0.8, lim)
         ax.set_xlabel(f"position in {label_a} (1 = highest)")
         ax.set_ylabel(f"position in {label_b}")
         ax.legend(loc="upper left", fontsize=8)
-        ax.text(0.98, 0.02, f"shaded: beyond the top {k:,}", transform=ax.transAxes,
-                ha="right", va="bottom", fontsize=7.5, color=palette.MUTED)
+        ax.text(
+            0.98,
+            0.02,
+            f"shaded: beyond the top {k:,}",
+            transform=ax.transAxes,
+            ha="right",
+            va="bottom",
+            fontsize=7.5,
+            color=palette.MUTED,
+        )
     return to_svg(fig, "scatter", "position in one run against position in the other, log-log")

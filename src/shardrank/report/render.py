@@ -25,47 +25,70 @@ def _name(res: RankResult) -> str:
 def _teleport(d: dict[str, Any] | None) -> str:
     if not d or d.get("kind") == "uniform":
         return "uniform (every node alike)"
-    return text(f"{d.get('entries', 0):,} seed keys from {d.get('path')}"
-                + (f" ({d['unknown_keys_ignored']:,} unknown keys ignored)" if d.get("unknown_keys_ignored") else ""))
+    return text(
+        f"{d.get('entries', 0):,} seed keys from {d.get('path')}"
+        + (
+            f" ({d['unknown_keys_ignored']:,} unknown keys ignored)"
+            if d.get("unknown_keys_ignored")
+            else ""
+        )
+    )
 
 
 def _start(d: dict[str, Any] | None) -> str:
     if not d or d.get("kind") == "uniform":
         return "uniform"
-    return text(f"warm, from {d.get('path')}: {d.get('matched', 0):,} keys matched, "
-                f"{d.get('new_nodes', 0):,} new")
+    return text(
+        f"warm, from {d.get('path')}: {d.get('matched', 0):,} keys matched, "
+        f"{d.get('new_nodes', 0):,} new"
+    )
 
 
 def _head(res: RankResult) -> str:
     s = res.summary
     ok = res.converged
-    verdict = (f"Converged in {res.iterations:,} iterations: the L1 distance to the exact scores is at "
-               f"most {res.error_bound:.2e} (tolerance {s.get('tol', 0):g})." if ok else
-               f"Not converged: stopped after {res.iterations:,} iterations with an L1 error bound of "
-               f"{res.error_bound:.2e}, above the tolerance {s.get('tol', 0):g}.")
-    return (f'<p class="kicker">shardrank run report</p><h1>{text(_name(res))}</h1>'
-            f'<p class="verdict{"" if ok else " warn"}">{text(verdict)}</p>'
-            f'<p class="meta">{text(res.run_dir)} · finished {text(s.get("finished", "–"))}</p>')
+    verdict = (
+        f"Converged in {res.iterations:,} iterations: the L1 distance to the exact scores is at "
+        f"most {res.error_bound:.2e} (tolerance {s.get('tol', 0):g})."
+        if ok
+        else f"Not converged: stopped after {res.iterations:,} iterations with an L1 error "
+        f"bound of {res.error_bound:.2e}, above the tolerance {s.get('tol', 0):g}."
+    )
+    return (
+        f'<p class="kicker">shardrank run report</p><h1>{text(_name(res))}</h1>'
+        f'<p class="verdict{"" if ok else " warn"}">{text(verdict)}</p>'
+        f'<p class="meta">{text(res.run_dir)} · finished {text(s.get("finished", "–"))}</p>'
+    )
 
 
 def _graph_section(facts: dict[str, Any] | None, res: RankResult, why_missing: str) -> str:
     if facts is None:
-        return f'<p class="note">{text(why_missing)}</p>' + page.facts([("nodes", num(res.n_nodes))])
+        return f'<p class="note">{text(why_missing)}</p>' + page.facts(
+            [("nodes", num(res.n_nodes))]
+        )
     q_in, q_out = facts["in_degree"], facts["out_degree"]
-    return page.facts([
-        ("nodes", num(facts["nodes"])),
-        ("edges", num(facts["edges"]) + (" (weighted)" if facts["weighted"] else "")),
-        ("dead ends (no out-links)", num(facts["dead_ends"])),
-        ("no in-links", num(facts["no_in_links"])),
-        ("self-loops kept", num(facts["self_loops"])),
-        ("duplicate edges merged", num(facts["duplicates_merged"])),
-        ("keys", text(facts["key_type"])),
-        ("in-degree p50 · p99 · max", f"{q_in['p50']:,.0f} · {q_in['p99']:,.0f} · {q_in['max']:,.0f}"),
-        ("out-degree p50 · p99 · max", f"{q_out['p50']:,.0f} · {q_out['p99']:,.0f} · {q_out['max']:,.0f}"),
-        ("blocks", num(facts["blocks"]["count"])),
-        ("bytes on disk", num(facts["bytes_on_disk"])),
-        ("store", text(facts["path"])),
-    ])
+    return page.facts(
+        [
+            ("nodes", num(facts["nodes"])),
+            ("edges", num(facts["edges"]) + (" (weighted)" if facts["weighted"] else "")),
+            ("dead ends (no out-links)", num(facts["dead_ends"])),
+            ("no in-links", num(facts["no_in_links"])),
+            ("self-loops kept", num(facts["self_loops"])),
+            ("duplicate edges merged", num(facts["duplicates_merged"])),
+            ("keys", text(facts["key_type"])),
+            (
+                "in-degree p50 · p99 · max",
+                f"{q_in['p50']:,.0f} · {q_in['p99']:,.0f} · {q_in['max']:,.0f}",
+            ),
+            (
+                "out-degree p50 · p99 · max",
+                f"{q_out['p50']:,.0f} · {q_out['p99']:,.0f} · {q_out['max']:,.0f}",
+            ),
+            ("blocks", num(facts["blocks"]["count"])),
+            ("bytes on disk", num(facts["bytes_on_disk"])),
+            ("store", text(facts["path"])),
+        ]
+    )
 
 
 def _options_section(res: RankResult) -> str:
@@ -93,12 +116,18 @@ def _options_section(res: RankResult) -> str:
 
 def _distribution(curves: list[tuple[str, Any]]) -> str:
     svg, below = plots.distribution(curves)
-    cap = ("For each value x, the share of nodes whose score is at least x times the uniform share 1/N. "
-           "A straight stretch on these log-log axes is a heavy tail: few nodes hold much of the score.")
+    cap = (
+        "For each value x, the share of nodes whose score is at least x times the uniform share "
+        "1/N. A straight stretch on these log-log axes is a heavy tail: few nodes hold much of "
+        "the score."
+    )
     cut = [f"{label}: {b:.1%}" for (label, _), b in zip(curves, below, strict=True) if b > 0]
     if cut:
-        cap += (f" Nodes below {plots.FLOOR_X_N:g} of the uniform share are not drawn ("
-                + "; ".join(cut) + " of nodes): typically pages the seeded teleport cannot reach.")
+        cap += (
+            f" Nodes below {plots.FLOOR_X_N:g} of the uniform share are not drawn ("
+            + "; ".join(cut)
+            + " of nodes): typically pages the seeded teleport cannot reach."
+        )
     return page.figure(svg, cap)
 
 
@@ -112,8 +141,10 @@ def _top_section(rows: list[dict[str, Any]], has_degrees: bool) -> str:
         if has_degrees:
             cells += [num(r["in_degree"]), num(r["out_degree"])]
         body.append(cells)
-    note = ('<p class="note">x N: the score in units of the uniform share 1/N. "in" and "out" count '
-            "distinct linking and linked nodes.</p>")
+    note = (
+        '<p class="note">x N: the score in units of the uniform share 1/N. "in" and "out" count '
+        "distinct linking and linked nodes.</p>"
+    )
     return note + page.table(head, body)
 
 
@@ -123,8 +154,14 @@ def _movers(rows: list[dict[str, Any]]) -> str:
     for r in rows[:10]:
         ch = r["position_a"] - r["position_b"]
         cls = "up" if ch > 0 else "down"
-        body.append([text(r["key"]), num(r["position_a"]), num(r["position_b"]),
-                     f'<span class="{cls}">{"+" if ch > 0 else "−"}{abs(ch):,}</span>'])
+        body.append(
+            [
+                text(r["key"]),
+                num(r["position_a"]),
+                num(r["position_b"]),
+                f'<span class="{cls}">{"+" if ch > 0 else "−"}{abs(ch):,}</span>',
+            ]
+        )
     return page.table(head, body) if body else '<p class="note">None.</p>'
 
 
@@ -143,20 +180,38 @@ def _compare_section(res: RankResult, base: RankResult, k: int) -> str:
         ("new keys", num(summary["new_keys"])),
         ("vanished keys", num(summary["vanished_keys"])),
     ]
-    svg = plots.rank_scatter(union.column("position_a").to_pylist(), union.column("position_b").to_pylist(),
-                             summary["n_a"], summary["n_b"], k, "the baseline", "this run")
+    svg = plots.rank_scatter(
+        union.column("position_a").to_pylist(),
+        union.column("position_b").to_pylist(),
+        summary["n_a"],
+        summary["n_b"],
+        k,
+        "the baseline",
+        "this run",
+    )
     return (
         page.facts(items)
-        + page.figure(svg, f"Each dot is a key in the top {k:,} of either run. On the dashed line a key kept "
-                           "its position; above it, it fell; below it, it rose. Hollow dots are keys that "
-                           "one run does not have.")
-        + "<h3>Biggest risers</h3>" + _movers(summary["risers"])
-        + "<h3>Biggest fallers</h3>" + _movers(summary["fallers"])
+        + page.figure(
+            svg,
+            f"Each dot is a key in the top {k:,} of either run. On the dashed line a key kept "
+            "its position; above it, it fell; below it, it rose. Hollow dots are keys that "
+            "one run does not have.",
+        )
+        + "<h3>Biggest risers</h3>"
+        + _movers(summary["risers"])
+        + "<h3>Biggest fallers</h3>"
+        + _movers(summary["fallers"])
     )
 
 
-def write_report(run: RunLike, out: str | Path, against: RunLike | None = None, k: int = settings.TOP_K,
-                 compare_k: int = settings.COMPARE_K, store: str | Path | None = None) -> Path:
+def write_report(
+    run: RunLike,
+    out: str | Path,
+    against: RunLike | None = None,
+    k: int = settings.TOP_K,
+    compare_k: int = settings.COMPARE_K,
+    store: str | Path | None = None,
+) -> Path:
     """Write a self-contained HTML report of ``run`` to ``out``; return its path.
 
     Parameters
@@ -193,23 +248,43 @@ def write_report(run: RunLike, out: str | Path, against: RunLike | None = None, 
     secs = [
         page.section(1, "graph", "The graph", _graph_section(facts, res, why)),
         page.section(2, "options", "Run options", _options_section(res)),
-        page.section(3, "convergence", "Convergence", page.figure(
-            plots.convergence(res.summary.get("history", {}), float(res.summary.get("tol", 0) or 0)),
-            "Each step's change (residual) falls roughly geometrically. The run stops only when a power "
-            "step proves the L1 distance to the exact scores is below the tolerance (diamonds).")),
+        page.section(
+            3,
+            "convergence",
+            "Convergence",
+            page.figure(
+                plots.convergence(
+                    res.summary.get("history", {}), float(res.summary.get("tol", 0) or 0)
+                ),
+                "Each step's change (residual) falls roughly geometrically. The run stops only "
+                "when a power step proves the L1 distance to the exact scores is below the "
+                "tolerance (diamonds).",
+            ),
+        ),
         page.section(4, "distribution", "Score distribution", _distribution(curves)),
         page.section(5, "top", f"Top {len(rows):,}", _top_section(rows, facts is not None)),
     ]
-    toc = [("graph", "Graph"), ("options", "Options"), ("convergence", "Convergence"),
-           ("distribution", "Distribution"), ("top", "Top")]
+    toc = [
+        ("graph", "Graph"),
+        ("options", "Options"),
+        ("convergence", "Convergence"),
+        ("distribution", "Distribution"),
+        ("top", "Top"),
+    ]
     if base is not None:
-        secs.append(page.section(6, "comparison", "Against the baseline", _compare_section(res, base, compare_k)))
+        secs.append(
+            page.section(
+                6, "comparison", "Against the baseline", _compare_section(res, base, compare_k)
+            )
+        )
         toc.append(("comparison", "Comparison"))
     from .. import __version__
 
     now = dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat()
-    footer = text(f"Written by shardrank {__version__} on {now}. Scores measure link structure, not "
-                  "quality; see docs/scores.md before reading them as anything else.")
+    footer = text(
+        f"Written by shardrank {__version__} on {now}. Scores measure link structure, not "
+        "quality; see docs/scores.md before reading them as anything else."
+    )
     doc = page.document(f"shardrank report: {_name(res)}", _head(res), toc, secs, footer)
     part = out.with_name(out.name + ".partial")
     with open(part, "w", encoding="utf-8") as f:

@@ -76,7 +76,9 @@ def register_scores(con: duckdb.DuckDBPyConnection, name: str, res: RankResult) 
     if res.run_dir is not None and (res.run_dir / runfiles.SCORES_PARQUET).is_file():
         path = res.run_dir / runfiles.SCORES_PARQUET
         key_type = pq.read_schema(path).field("key").type
-        con.execute(f"CREATE VIEW {name} AS SELECT key, score FROM read_parquet({_sql_str(str(path))})")
+        con.execute(
+            f"CREATE VIEW {name} AS SELECT key, score FROM read_parquet({_sql_str(str(path))})"
+        )
         return key_type
     table = pa.table({"key": res.keys, "score": pa.array(res.scores, type=pa.float64())})
     con.register(f"{name}_arrow", table)
@@ -105,8 +107,9 @@ def _mover(row: dict[str, Any]) -> dict[str, Any]:
     return {k: row[k] for k in ("key", "position_a", "position_b", "score_a", "score_b")}
 
 
-def comparison(a: RunLike, b: RunLike, k: int = settings.COMPARE_K,
-               threads: int | None = None) -> tuple[dict[str, Any], pa.Table]:
+def comparison(
+    a: RunLike, b: RunLike, k: int = settings.COMPARE_K, threads: int | None = None
+) -> tuple[dict[str, Any], pa.Table]:
     """Compare two runs; return the summary of :func:`compare_runs` and the joined top-k rows.
 
     The table holds the union of both top-k: ``key``, ``position_a``, ``position_b``,
@@ -114,19 +117,25 @@ def comparison(a: RunLike, b: RunLike, k: int = settings.COMPARE_K,
     ``position_a`` then ``position_b``.
     """
     if k < 1:
-        raise BadInputError(f"k must be at least 1 (got {k})", hint="pass -k 1000 or another positive number")
+        raise BadInputError(
+            f"k must be at least 1 (got {k})", hint="pass -k 1000 or another positive number"
+        )
     ra, rb = as_result(a), as_result(b)
     with scratch_duckdb(threads) as con:
         ta = register_scores(con, "sa", ra)
         tb = register_scores(con, "sb", rb)
         if _kind(ta) != _kind(tb):
             raise BadInputError(
-                f"the runs have different key types ({_kind(ta)} vs {_kind(tb)}); keys cannot be joined",
-                hint="compare runs over stores built from the same kind of keys")
+                f"the runs have different key types ({_kind(ta)} vs {_kind(tb)}); "
+                "keys cannot be joined",
+                hint="compare runs over stores built from the same kind of keys",
+            )
         # Positions over the whole run: 1 = highest score, ties by key.
         for side in ("a", "b"):
-            con.execute(f"CREATE TABLE p{side} AS SELECT key, score, "
-                        f"row_number() OVER (ORDER BY score DESC, key) AS pos FROM s{side}")
+            con.execute(
+                f"CREATE TABLE p{side} AS SELECT key, score, "
+                f"row_number() OVER (ORDER BY score DESC, key) AS pos FROM s{side}"
+            )
         n_a, n_b, common, new, vanished, l1, max_abs = con.execute(
             """SELECT (SELECT count(*) FROM pa), (SELECT count(*) FROM pb),
                       count(*) FILTER (WHERE a.key IS NOT NULL AND b.key IS NOT NULL),
@@ -134,30 +143,48 @@ def comparison(a: RunLike, b: RunLike, k: int = settings.COMPARE_K,
                       count(*) FILTER (WHERE b.key IS NULL),
                       fsum(abs(coalesce(a.score, 0) - coalesce(b.score, 0))),
                       max(abs(coalesce(a.score, 0) - coalesce(b.score, 0)))
-               FROM pa a FULL OUTER JOIN pb b ON a.key = b.key""").fetchall()[0]
+               FROM pa a FULL OUTER JOIN pb b ON a.key = b.key"""
+        ).fetchall()[0]
         overlap: dict[str, float] = {}
         for kk in sorted({*OVERLAP_KS, k}):
             cap = max(1, min(kk, n_a, n_b))
-            hits = con.execute("SELECT count(*) FROM pa a JOIN pb b ON a.key = b.key "
-                               "WHERE a.pos <= ? AND b.pos <= ?", [cap, cap]).fetchall()[0][0]
+            hits = con.execute(
+                "SELECT count(*) FROM pa a JOIN pb b ON a.key = b.key "
+                "WHERE a.pos <= ? AND b.pos <= ?",
+                [cap, cap],
+            ).fetchall()[0][0]
             overlap[str(kk)] = hits / cap
-        union = fetch_arrow(con, f"""SELECT coalesce(a.key, b.key) AS key, a.pos AS position_a, b.pos AS position_b,
+        union = fetch_arrow(
+            con,
+            f"""SELECT coalesce(a.key, b.key) AS key, a.pos AS position_a, b.pos AS position_b,
                       a.score AS score_a, b.score AS score_b
                FROM pa a FULL OUTER JOIN pb b ON a.key = b.key
                WHERE a.pos <= {int(k)} OR b.pos <= {int(k)}
-               ORDER BY a.pos NULLS LAST, b.pos NULLS LAST""")
+               ORDER BY a.pos NULLS LAST, b.pos NULLS LAST""",
+        )
     rows = union.to_pylist()
-    tau, rho = _correlations([r["score_a"] or 0.0 for r in rows], [r["score_b"] or 0.0 for r in rows])
+    tau, rho = _correlations(
+        [r["score_a"] or 0.0 for r in rows], [r["score_b"] or 0.0 for r in rows]
+    )
     both = [r for r in rows if r["position_a"] is not None and r["position_b"] is not None]
     # Risers: the largest climb in position first; equal climbs by their new position.
-    risers = sorted((r for r in both if r["position_b"] < r["position_a"]),
-                    key=lambda r: (r["position_b"] - r["position_a"], r["position_b"]))
-    fallers = sorted((r for r in both if r["position_b"] > r["position_a"]),
-                     key=lambda r: (r["position_a"] - r["position_b"], r["position_a"]))
-    new_top = [{"key": r["key"], "position_b": r["position_b"], "score_b": r["score_b"]}
-               for r in sorted((r for r in rows if r["position_a"] is None), key=lambda r: r["position_b"])]
-    gone_top = [{"key": r["key"], "position_a": r["position_a"], "score_a": r["score_a"]}
-                for r in rows if r["position_b"] is None]
+    risers = sorted(
+        (r for r in both if r["position_b"] < r["position_a"]),
+        key=lambda r: (r["position_b"] - r["position_a"], r["position_b"]),
+    )
+    fallers = sorted(
+        (r for r in both if r["position_b"] > r["position_a"]),
+        key=lambda r: (r["position_a"] - r["position_b"], r["position_a"]),
+    )
+    new_top = [
+        {"key": r["key"], "position_b": r["position_b"], "score_b": r["score_b"]}
+        for r in sorted((r for r in rows if r["position_a"] is None), key=lambda r: r["position_b"])
+    ]
+    gone_top = [
+        {"key": r["key"], "position_a": r["position_a"], "score_a": r["score_a"]}
+        for r in rows
+        if r["position_b"] is None
+    ]
     summary: dict[str, Any] = {
         "a": str(ra.run_dir) if ra.run_dir else None,
         "b": str(rb.run_dir) if rb.run_dir else None,

@@ -43,8 +43,10 @@ def export_format(out: Path) -> str:
     for suffix in sorted(FORMATS, key=len, reverse=True):
         if name.endswith(suffix):
             return FORMATS[suffix]
-    raise BadInputError(f"{out}: cannot tell the format from the name",
-                        hint="end the file name with .parquet, .csv or .csv.gz")
+    raise BadInputError(
+        f"{out}: cannot tell the format from the name",
+        hint="end the file name with .parquet, .csv or .csv.gz",
+    )
 
 
 def spreadsheet_safe(key: Any) -> Any:
@@ -59,11 +61,17 @@ def _count_escaped(keys: pa.Array) -> int:
     return int(pc.sum(pc.is_in(first, value_set=pa.array(_ESCAPE_STARTS))).as_py() or 0)
 
 
-def _batches(res: RankResult, pos: np.ndarray, ind: np.ndarray, outd: np.ndarray,
-             count: dict[str, int] | None) -> Iterator[pa.RecordBatch]:
+def _batches(
+    res: RankResult,
+    pos: np.ndarray,
+    ind: np.ndarray,
+    outd: np.ndarray,
+    count: dict[str, int] | None,
+) -> Iterator[pa.RecordBatch]:
     if res.run_dir is not None and (res.run_dir / runfiles.SCORES_PARQUET).is_file():
         source = pq.ParquetFile(res.run_dir / runfiles.SCORES_PARQUET).iter_batches(
-            batch_size=_BATCH_ROWS, columns=["key", "score"])
+            batch_size=_BATCH_ROWS, columns=["key", "score"]
+        )
     else:
         source = pa.table({"key": res.keys, "score": pa.array(res.scores)}).to_batches(_BATCH_ROWS)
     lo = 0
@@ -72,17 +80,30 @@ def _batches(res: RankResult, pos: np.ndarray, ind: np.ndarray, outd: np.ndarray
         if count is not None:
             count["escaped"] += _count_escaped(b.column(0))
         yield pa.RecordBatch.from_arrays(
-            [pa.array(pos[lo:hi]), b.column(0), b.column(1),
-             pa.array(np.asarray(ind[lo:hi], dtype=np.int64)), pa.array(np.asarray(outd[lo:hi], dtype=np.int64))],
-            names=["position", "key", "score", "in_degree", "out_degree"])
+            [
+                pa.array(pos[lo:hi]),
+                b.column(0),
+                b.column(1),
+                pa.array(np.asarray(ind[lo:hi], dtype=np.int64)),
+                pa.array(np.asarray(outd[lo:hi], dtype=np.int64)),
+            ],
+            names=["position", "key", "score", "in_degree", "out_degree"],
+        )
         lo = hi
     if lo != pos.shape[0]:
-        raise BadInputError(f"{res.run_dir}: scores.parquet has {lo:,} rows, the run has {pos.shape[0]:,}",
-                            hint="the run is damaged; rank again")
+        raise BadInputError(
+            f"{res.run_dir}: scores.parquet has {lo:,} rows, the run has {pos.shape[0]:,}",
+            hint="the run is damaged; rank again",
+        )
 
 
-def export_run(run: RunLike, out: str | Path, store: str | Path | None = None,
-               overwrite: bool = False, threads: int | None = None) -> dict[str, Any]:
+def export_run(
+    run: RunLike,
+    out: str | Path,
+    store: str | Path | None = None,
+    overwrite: bool = False,
+    threads: int | None = None,
+) -> dict[str, Any]:
     """Write a run's scores, positions and degrees to ``out`` (.parquet, .csv or .csv.gz).
 
     Parameters
@@ -111,12 +132,20 @@ def export_run(run: RunLike, out: str | Path, store: str | Path | None = None,
     res = as_result(run)
     reader = open_run_store(res, store)
     pos = positions(res.scores)
-    schema = pa.schema([("position", pa.int64()), ("key", res.keys.type), ("score", pa.float64()),
-                        ("in_degree", pa.int64()), ("out_degree", pa.int64())])
+    schema = pa.schema(
+        [
+            ("position", pa.int64()),
+            ("key", res.keys.type),
+            ("score", pa.float64()),
+            ("in_degree", pa.int64()),
+            ("out_degree", pa.int64()),
+        ]
+    )
     string_keys = pa.types.is_string(res.keys.type) or pa.types.is_large_string(res.keys.type)
     count = {"escaped": 0} if fmt != "parquet" and string_keys else None
     stream = pa.RecordBatchReader.from_batches(
-        schema, _batches(res, pos, reader.in_degree(), reader.out_degree(), count))
+        schema, _batches(res, pos, reader.in_degree(), reader.out_degree(), count)
+    )
     part = out.with_name(out.name + ".partial")
     with scratch_duckdb(threads) as con:
         con.register("rows", stream)
@@ -125,14 +154,25 @@ def export_run(run: RunLike, out: str | Path, store: str | Path | None = None,
             opts = "FORMAT parquet, COMPRESSION zstd"
         else:
             starts = ", ".join(_sql_str(c) for c in _ESCAPE_STARTS)
-            key_sql = f"CASE WHEN left(key, 1) IN ({starts}) THEN '''' || key ELSE key END" if string_keys else "key"
+            key_sql = (
+                f"CASE WHEN left(key, 1) IN ({starts}) THEN '''' || key ELSE key END"
+                if string_keys
+                else "key"
+            )
             opts = "FORMAT csv, HEADER true, FORCE_QUOTE (key)"
             if fmt == "csv.gz":
                 opts += ", COMPRESSION gzip"
-        con.execute(f"COPY (SELECT position, {key_sql} AS key, score, in_degree, out_degree "
-                    f"FROM rows ORDER BY position) TO {_sql_str(str(part))} ({opts})")
+        con.execute(
+            f"COPY (SELECT position, {key_sql} AS key, score, in_degree, out_degree "
+            f"FROM rows ORDER BY position) TO {_sql_str(str(part))} ({opts})"
+        )
     with open(part, "rb+") as f:
         os.fsync(f.fileno())
     os.replace(part, out)
     fsync_dir(out.parent)
-    return {"path": str(out), "format": fmt, "rows": int(pos.shape[0]), "escaped_keys": count["escaped"] if count else 0}
+    return {
+        "path": str(out),
+        "format": fmt,
+        "rows": int(pos.shape[0]),
+        "escaped_keys": count["escaped"] if count else 0,
+    }

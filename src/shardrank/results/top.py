@@ -31,16 +31,22 @@ def open_run_store(res: RankResult, store: str | Path | None = None) -> StoreRea
     doc = res.summary.get("store") or {}
     path = Path(store) if store is not None else Path(doc.get("path", ""))
     if not path.is_dir():
-        raise BadInputError(f"{path}: the run's store is not there (moved or deleted?)",
-                            hint="pass --store with the store's new location")
+        raise BadInputError(
+            f"{path}: the run's store is not there (moved or deleted?)",
+            hint="pass --store with the store's new location",
+        )
     reader = StoreReader.open(path)
     want = doc.get("fingerprint")
     if want and reader.fingerprint != want:
-        raise BadInputError(f"{path}: not the store this run was computed on (fingerprint differs)",
-                            hint="pass --store with the store the run used")
+        raise BadInputError(
+            f"{path}: not the store this run was computed on (fingerprint differs)",
+            hint="pass --store with the store the run used",
+        )
     if reader.n_nodes != res.n_nodes:
-        raise BadInputError(f"{path}: {reader.n_nodes:,} nodes but the run has {res.n_nodes:,}",
-                            hint="pass --store with the store the run used")
+        raise BadInputError(
+            f"{path}: {reader.n_nodes:,} nodes but the run has {res.n_nodes:,}",
+            hint="pass --store with the store the run used",
+        )
     return reader
 
 
@@ -74,21 +80,39 @@ def _matching(res: RankResult, pattern: str, k: int) -> tuple[np.ndarray, list[A
     """Ids and keys of the k highest-scored keys that match ``pattern`` (DuckDB GLOB)."""
     with scratch_duckdb() as con:
         if res.run_dir is not None and (res.run_dir / runfiles.SCORES_PARQUET).is_file():
-            src = (f"read_parquet({_sql_str(str(res.run_dir / runfiles.SCORES_PARQUET))}, "
-                   "file_row_number = true)")
+            src = (
+                f"read_parquet({_sql_str(str(res.run_dir / runfiles.SCORES_PARQUET))}, "
+                "file_row_number = true)"
+            )
             idcol = "file_row_number"
         else:
-            con.register("mem", pa.table({"key": res.keys, "score": pa.array(res.scores),
-                                          "id": pa.array(np.arange(res.n_nodes))}))
+            con.register(
+                "mem",
+                pa.table(
+                    {
+                        "key": res.keys,
+                        "score": pa.array(res.scores),
+                        "id": pa.array(np.arange(res.n_nodes)),
+                    }
+                ),
+            )
             src, idcol = "mem", "id"
-        t = fetch_arrow(con, f"SELECT {idcol} AS id, key FROM {src} "
-                             f"WHERE CAST(key AS VARCHAR) GLOB {_sql_str(_glob(pattern))} "
-                             f"ORDER BY score DESC, key LIMIT {int(k)}")
+        t = fetch_arrow(
+            con,
+            f"SELECT {idcol} AS id, key FROM {src} "
+            f"WHERE CAST(key AS VARCHAR) GLOB {_sql_str(_glob(pattern))} "
+            f"ORDER BY score DESC, key LIMIT {int(k)}",
+        )
     return np.asarray(t.column("id").to_numpy(), dtype=np.int64), t.column("key").to_pylist()
 
 
-def top_rows(run: RunLike, k: int = settings.TOP_K, match: str | None = None,
-             store: str | Path | None = None, degrees: bool = True) -> list[dict[str, Any]]:
+def top_rows(
+    run: RunLike,
+    k: int = settings.TOP_K,
+    match: str | None = None,
+    store: str | Path | None = None,
+    degrees: bool = True,
+) -> list[dict[str, Any]]:
     """The k highest-scored nodes of a run (among keys matching ``match`` if given).
 
     Parameters
@@ -111,7 +135,9 @@ def top_rows(run: RunLike, k: int = settings.TOP_K, match: str | None = None,
         ``position, key, score, score_x_n, in_degree, out_degree``, highest score first.
     """
     if k < 1:
-        raise BadInputError(f"-k must be at least 1 (got {k})", hint="pass -k 25 or another positive number")
+        raise BadInputError(
+            f"-k must be at least 1 (got {k})", hint="pass -k 25 or another positive number"
+        )
     res = as_result(run)
     scores = res.scores
     n = res.n_nodes
@@ -125,7 +151,12 @@ def top_rows(run: RunLike, k: int = settings.TOP_K, match: str | None = None,
         ids, keys = _matching(res, match, k)
         pos = positions_of(scores, ids)
     rows: list[dict[str, Any]] = [
-        {"position": int(p), "key": key, "score": float(scores[i]), "score_x_n": float(scores[i]) * n}
+        {
+            "position": int(p),
+            "key": key,
+            "score": float(scores[i]),
+            "score_x_n": float(scores[i]) * n,
+        }
         for p, key, i in zip(pos.tolist(), keys, ids.tolist(), strict=True)
     ]
     if degrees and rows:
