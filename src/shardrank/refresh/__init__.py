@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
-from .refresh import REFRESH_JSON, RefreshOptions, refresh
+from .options import RefreshOptions
+from .refresh import REFRESH_JSON, refresh
 
 __all__ = ["REFRESH_JSON", "RefreshOptions", "refresh"]

@@ -2,7 +2,7 @@
 
 Set ``SHARDRANK_TEST_PAUSE`` to one of
 
-* ``build``   - inside the store build, once its partial folder holds data (the "degrees" phase);
+* ``build``   - inside the store build, at its first phase once its partial folder holds files;
 * ``rank``    - inside the iteration, right after the first checkpoint was written;
 * ``publish`` - inside publishing, after the fresh link exists and before it replaces ``current``.
 
@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Any
 
 from ..progress import Reporter
+from ..store.layout import stale_partials
 
 PAUSE_ENV = "SHARDRANK_TEST_PAUSE"
 PAUSE_MARKER = ".test-paused"
@@ -44,16 +45,21 @@ class PausePoint:
 
 
 class PausingReporter(Reporter):
-    """Passes everything on to ``inner``; pauses at the build and rank hook points."""
+    """Passes everything on to ``inner``; pauses at the build and rank hook points.
+
+    Set ``building`` to the store being built while ``build_store`` runs.
+    """
 
     def __init__(self, inner: Reporter, pause: PausePoint) -> None:
         self.inner = inner
         self.pause = pause
+        self.building: Path | None = None
 
     def event(self, kind: str, message: str, **fields: Any) -> None:
         self.inner.event(kind, message, **fields)
-        if kind == "phase" and fields.get("phase") == "degrees":
-            self.pause.reached("build")
+        if kind == "phase" and self.building is not None and self.pause.phase == "build":
+            if any(any(p.iterdir()) for p in stale_partials(self.building) if p.is_dir()):
+                self.pause.reached("build")
         elif kind == "checkpoint":
             self.pause.reached("rank")
 

@@ -21,17 +21,15 @@ after the summary was delivered (exit 3, 4 or 5).
 from __future__ import annotations
 
 import json
-import math
 import os
 import time
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from .. import settings
 from ..errors import (
     BadInputError,
     DamagedDataError,
@@ -39,54 +37,24 @@ from ..errors import (
     NotConvergedError,
     ShardrankError,
 )
-from ..ingest.build import BuildOptions, build_store
+from ..ingest.build import build_store
 from ..progress import Reporter
 from ..results.result import read_run_json
-from ..solve.checkpoint import CKPT_DIR
-from ..solve.options import RankOptions
 from ..solve.run import rank, resume
 from ..store.atomic import write_json_atomic
-from ..store.manifest import StoreManifest, read_manifest
+from ..store.manifest import read_manifest
 from . import generations as gens
 from .checks import check_guards, cold_estimate, compare_with_previous, validate_run
-from .fingerprint import check_same_schema, input_fingerprint, teleport_hash
+from .fingerprint import check_same_schema, input_fingerprint
 from .hooks import PausePoint, PausingReporter
 from .lock import HomeLock
+from .options import RefreshOptions
+from .plan import Plan, checkpoint_iteration, make_plan, reusable_store
 from .publish import publish, published_run
 
 REFRESH_JSON = "refresh.json"  # the summary, inside the run directory
 
 Summary = dict[str, Any]
-
-
-@dataclass
-class RefreshOptions:
-    """Options of :func:`refresh`: how to build, how to rank, how many generations to keep,
-    and the publishing guards. ``rank.init`` must stay None (the published run is the start)."""
-
-    build: BuildOptions = field(default_factory=BuildOptions)
-    rank: RankOptions = field(default_factory=RankOptions)
-    keep: int = settings.REFRESH_KEEP
-    max_l1: float | None = None
-    min_overlap: tuple[int, float] | None = None  # (K, F)
-
-    def validate(self) -> None:
-        if not isinstance(self.keep, int) or self.keep < 1:
-            raise BadInputError(f"--keep {self.keep} must be at least 1 (the newest generation)")
-        if self.max_l1 is not None and not (math.isfinite(self.max_l1) and self.max_l1 >= 0):
-            raise BadInputError(
-                f"--max-l1 {self.max_l1} must be a number >= 0 (the L1 distance is at most 2)"
-            )
-        if self.min_overlap is not None:
-            k, f = self.min_overlap
-            if k < 1 or not 0.0 <= f <= 1.0:
-                raise BadInputError(f"--min-overlap {k}:{f}: K must be >= 1 and F between 0 and 1")
-        if self.rank.init is not None:
-            raise BadInputError(
-                "refresh warm-starts from the published run; do not pass --init",
-                hint="to seed the first refresh, rank once and publish it, or just let it start cold",
-            )
-        self.rank.validate()
 
 
 class _Clock:
@@ -106,77 +74,6 @@ class _Clock:
 
     def table(self) -> dict[str, float]:
         return {**self.seconds, "total": round(time.monotonic() - self.t0, 4)}
-
-
-@dataclass
-class _Plan:
-    kind: str  # "up-to-date" | "finish" (publish a finished run) | "resume" | "new"
-    run: Path | None = None
-    store: Path | None = None
-    note: str = ""
-
-
-def _store_matches(m: StoreManifest, fp: str, b: BuildOptions) -> bool:
-    return m.input.get("fingerprint") == fp and m.options.get("id_width", "auto") == b.id_width
-
-
-def _run_matches(home: Path, run: Path, fp: str, o: RefreshOptions) -> Path | None:
-    """The store of ``run`` when the run answers tonight's question (same inputs, same options)."""
-    try:
-        doc = read_run_json(run)
-        store = gens.store_of_run(home, run)
-        if store is None or not _store_matches(read_manifest(store), fp, o.build):
-            return None
-        opts = doc["options"]
-        ro = o.rank
-        if (
-            {k: opts.get(k) for k in ro.answer_options()} != ro.answer_options()
-            or opts.get("teleport") != ro.teleport
-            or opts.get("ignore_unknown_keys") != ro.ignore_unknown_keys
-        ):
-            return None
-        if ro.teleport is not None and doc["teleport"]["hash"] != teleport_hash(store, ro):
-            return None
-        return store
-    except (ShardrankError, KeyError, TypeError):
-        return None
-
-
-def _plan(home: Path, fp: str, o: RefreshOptions, published: Path | None) -> _Plan:
-    if published is not None and (store := _run_matches(home, published, fp, o)) is not None:
-        return _Plan(
-            "up-to-date", published, store, "the published run already ranks this snapshot"
-        )
-    newer = [
-        g
-        for g in gens.list_generations(home / gens.RUNS)
-        if published is None or g.number > (gens.gen_number(published.name) or 0)
-    ]
-    if newer:
-        run = newer[-1].path
-        store = _run_matches(home, run, fp, o)
-        if store is not None:
-            status = read_run_json(run).get("status")
-            if status in ("converged", "not-converged"):
-                return _Plan("finish", run, store, f"{run.name} finished but was not published")
-            return _Plan("resume", run, store, f"{run.name} was interrupted")
-    return _Plan("new")
-
-
-def _reusable_store(home: Path, fp: str, b: BuildOptions) -> Path | None:
-    for g in reversed(gens.list_generations(home / gens.STORES)):
-        try:
-            if _store_matches(read_manifest(g.path), fp, b):
-                return g.path
-        except ShardrankError:
-            continue
-    return None
-
-
-def _checkpoint_iteration(run: Path) -> int:
-    """Iteration of the newest checkpoint of a run (0: none, the run restarts from its start)."""
-    nums = [int(p.name[5:]) for p in (run / CKPT_DIR).glob("iter-*") if p.name[5:].isdigit()]
-    return max(nums, default=0)
 
 
 def _rel(home: Path, p: Path | None) -> str | None:
@@ -258,7 +155,7 @@ def _refresh_locked(
     published = published_run(home)
     if published is not None and (pstore := gens.store_of_run(home, published)) is not None:
         check_same_schema(snap, o.build, read_manifest(pstore))
-    plan = _plan(home, fp, o, published)
+    plan = make_plan(home, fp, o, published)
     if plan.note:
         rep.event("plan", plan.note)
     if plan.kind == "up-to-date":
@@ -267,7 +164,7 @@ def _refresh_locked(
     reused = False
     if plan.kind == "resume":
         assert plan.run is not None
-        resumed = {"phase": "rank", "from_iteration": _checkpoint_iteration(plan.run)}
+        resumed = {"phase": "rank", "from_iteration": checkpoint_iteration(plan.run)}
         try:
             with clock.phase("rank"):
                 resume(plan.run, rep, store=plan.store, threads=o.rank.threads)
@@ -276,22 +173,24 @@ def _refresh_locked(
             rep.event(
                 "warning", f"cannot resume {plan.run.name} ({e.message}); starting a new generation"
             )
-            plan = _Plan("new")
+            plan = Plan("new")
     if plan.kind == "new":
         number = gens.next_number(home)
-        store = _reusable_store(home, fp, o.build)
+        store = reusable_store(home, fp, o.build)
         if store is not None:
             reused = True
             rep.event("reuse", f"the snapshot is unchanged since {store.name}: reusing that store")
         else:
             store = home / gens.STORES / gens.gen_name(number)
             with clock.phase("build"):
+                rep.building = store
                 build_store(edges, store, replace(o.build, overwrite=False), rep)
+                rep.building = None
         run = home / gens.RUNS / gens.gen_name(number)
         ro = replace(o.rank, init=str(published) if published is not None else None)
         with clock.phase("rank"):
             rank(store, run, ro, rep)
-        plan = _Plan("new", run, store)
+        plan = Plan("new", run, store)
     assert plan.run is not None and plan.store is not None
     return _conclude(
         home, plan, fp, o, published, rep, pause, clock, on_summary, reused=reused, resumed=resumed
@@ -300,7 +199,7 @@ def _refresh_locked(
 
 def _up_to_date(
     home: Path,
-    plan: _Plan,
+    plan: Plan,
     fp: str,
     o: RefreshOptions,
     clock: _Clock,
@@ -336,7 +235,7 @@ def _up_to_date(
 
 def _conclude(
     home: Path,
-    plan: _Plan,
+    plan: Plan,
     fp: str,
     o: RefreshOptions,
     published: Path | None,
