@@ -45,6 +45,11 @@ def print_facts(f: dict[str, Any]) -> None:
         ("source ids", f["source_id_dtype"]),
         ("bytes on disk", f"{f['bytes_on_disk']:,}"),
     ]
+    if len(b.get("sizes", [])) <= 8:  # a few blocks: one line each; many: the summary above
+        for s in b.get("sizes", []):
+            last = s["first_node"] + s["nodes"] - 1
+            lines.append((f"  block {s['index']}", f"ids {s['first_node']:,}..{last:,}: {s['edges']:,} edges, "
+                                                  f"{s['bytes']:,} bytes"))
     w = max(len(k) for k, _ in lines)
     for k, v in lines:
         print(f"{k:<{w}}  {v}")

@@ -6,7 +6,12 @@ from typing import Any
 
 import numpy as np
 
+from ..store import layout
 from ..store.reader import StoreReader
+
+
+def _block_files(i: int) -> tuple[str, str, str]:
+    return layout.shard_offsets(i), layout.shard_sources(i), layout.shard_weights(i)
 
 
 def _quantiles(a: np.ndarray) -> dict[str, float]:
@@ -20,6 +25,11 @@ def store_facts(reader: StoreReader) -> dict[str, Any]:
     out_deg = np.asarray(reader.out_degree())
     in_deg = np.asarray(reader.in_degree())
     sizes = [b.n_edges for b in m.blocks]
+    per_block = [
+        {"index": b.index, "first_node": b.first_node, "nodes": b.n_nodes, "edges": b.n_edges,
+         "bytes": sum(m.files[f].bytes for f in _block_files(b.index) if f in m.files)}
+        for b in m.blocks
+    ]
     return {
         "path": str(reader.path),
         "format": m.format,
@@ -46,8 +56,11 @@ def store_facts(reader: StoreReader) -> dict[str, Any]:
             "edges_min": min(sizes),
             "edges_median": float(np.median(sizes)),
             "edges_max": max(sizes),
+            "bytes_max": max(b["bytes"] for b in per_block),
+            "sizes": per_block,
         },
-        "bytes_on_disk": reader.bytes_on_disk(),
+        # every file of the store directory, manifest.json included
+        "bytes_on_disk": reader.bytes_on_disk() + (reader.path / layout.MANIFEST).stat().st_size,
         "input_fingerprint": m.input.get("fingerprint"),
         "options": m.options,
     }
