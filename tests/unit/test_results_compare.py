@@ -161,6 +161,11 @@ def test_real_runs_from_directories(build: Any, tmp_path: Path) -> None:
     assert got["spearman_rho"] == pytest.approx(want["spearman_rho"], rel=1e-12)
     assert got["overlap"] == want["overlap"] and got["same_store"]
     assert got["n_a"] == got["n_b"] == ra.n_nodes
+    # run directories take the O(N) path (partial selection, counted positions); in-memory
+    # results rank everything: both must agree, also on the many zero-score ties of b
+    in_memory = compare_runs(mem(keys, ra.scores), mem(keys, rb.scores), k=50)
+    for field in ("l1", "overlap", "risers", "fallers", "kendall_tau", "spearman_rho"):
+        assert got[field] == in_memory[field], field
 
 
 def test_integer_and_string_keys_do_not_join() -> None:

@@ -11,7 +11,8 @@ import pytest
 
 import shardrank
 from shardrank.errors import BadInputError
-from shardrank.results.top import positions, positions_of, top_rows
+from shardrank.results.compare import positions, positions_of, top_ids
+from shardrank.results.top import top_rows
 
 SRC = [
     "https://a.example/",
@@ -47,12 +48,18 @@ def test_positions_ties_by_id() -> None:
     assert positions_of(s, np.array([2, 3])).tolist() == [5, 2]
 
 
-def test_positions_of_agrees_with_a_full_sort_for_many_ids() -> None:
-    rng = np.random.default_rng(0)
-    s = rng.integers(0, 20, 5000).astype(float)  # many ties
-    ids = rng.choice(5000, 200, replace=False)
-    assert positions_of(s, ids).tolist() == positions(s)[ids].tolist()
-    assert positions_of(s, ids[:10]).tolist() == positions(s)[ids[:10]].tolist()
+@pytest.mark.parametrize("seed", range(5))
+def test_positions_of_and_top_ids_agree_with_a_full_sort(seed: int) -> None:
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(50, 5000))
+    s = rng.integers(0, 20, n).astype(float)  # many ties, also across the top-k boundary
+    full = positions(s)
+    # the full sort is the plain definition: sorted by (-score, id)
+    assert full.tolist() == (np.argsort(np.lexsort((np.arange(n), -s))) + 1).tolist()
+    ids = rng.choice(n, min(n, 200), replace=False)
+    assert positions_of(s, ids).tolist() == full[ids].tolist()
+    for k in (1, 7, n // 3, n):
+        assert top_ids(s, k).tolist() == np.argsort(full)[:k].tolist()
 
 
 def test_top_rows_order_scores_and_degrees(run: Path) -> None:

@@ -11,9 +11,8 @@ import numpy as np
 from .. import api
 from ..ingest.build import BuildOptions
 from ..progress import JsonReporter, Reporter
-from ..results.compare import compare_runs
+from ..results.compare import compare_runs, positions_of
 from ..results.result import RankResult
-from ..results.top import positions_of
 from ..solve.options import RankOptions
 from .scenario import Scenario, generate
 

@@ -16,13 +16,15 @@ from __future__ import annotations
 import math
 import shutil
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
 import duckdb
+import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 from scipy import stats
 
@@ -72,18 +74,109 @@ def as_result(run: RunLike) -> RankResult:
 
 
 def register_scores(con: duckdb.DuckDBPyConnection, name: str, res: RankResult) -> pa.DataType:
-    """Make view ``name`` (key, score) of a run's scores; return the key type."""
+    """Make view ``name`` (id, key, score) of a run's scores; return the key type."""
     if res.run_dir is not None and (res.run_dir / runfiles.SCORES_PARQUET).is_file():
         path = res.run_dir / runfiles.SCORES_PARQUET
         key_type = pq.read_schema(path).field("key").type
         con.execute(
-            f"CREATE VIEW {name} AS SELECT key, score FROM read_parquet({_sql_str(str(path))})"
+            f"CREATE VIEW {name} AS SELECT file_row_number AS id, key, score "
+            f"FROM read_parquet({_sql_str(str(path))}, file_row_number = true)"
         )
         return key_type
-    table = pa.table({"key": res.keys, "score": pa.array(res.scores, type=pa.float64())})
+    table = pa.table(
+        {
+            "id": pa.array(np.arange(res.n_nodes, dtype=np.int64)),
+            "key": res.keys,
+            "score": pa.array(np.asarray(res.scores), type=pa.float64()),
+        }
+    )
     con.register(f"{name}_arrow", table)
-    con.execute(f"CREATE VIEW {name} AS SELECT key, score FROM {name}_arrow")
+    con.execute(f"CREATE VIEW {name} AS SELECT id, key, score FROM {name}_arrow")
     return table.schema.field("key").type
+
+
+def positions(scores: np.ndarray, tiebreak: np.ndarray | None = None) -> np.ndarray:
+    """int64[N]: the 1-based position of every node, highest score first.
+
+    Equal scores are ordered by ``tiebreak`` (the rank of each node's key) when given, else
+    by id, which is key order in every run made from a store.
+    """
+    s = np.asarray(scores)
+    if tiebreak is None:
+        order = np.argsort(-s, kind="stable")
+    else:
+        order = np.lexsort((tiebreak, -s))
+    pos = np.empty(order.shape[0], dtype=np.int64)
+    pos[order] = np.arange(1, order.shape[0] + 1, dtype=np.int64)
+    return pos
+
+
+def top_ids(scores: np.ndarray, n: int) -> np.ndarray:
+    """int64: ids of the n best positions, best first (ties by id), in O(N) plus a small sort.
+
+    A plain ``argpartition`` may keep any of the nodes tied at the n-th score; here exactly
+    the ones of smallest id are kept.
+    """
+    s = np.asarray(scores)
+    n = min(int(n), s.shape[0])
+    if n <= 0:
+        return np.zeros(0, dtype=np.int64)
+    t = np.partition(s, s.shape[0] - n)[s.shape[0] - n]  # the n-th largest score
+    above = np.flatnonzero(s > t)
+    ids = np.concatenate([above, np.flatnonzero(s == t)[: n - above.size]])
+    return ids[np.lexsort((ids, -s[ids]))].astype(np.int64)
+
+
+def positions_of(scores: np.ndarray, ids: np.ndarray) -> np.ndarray:
+    """int64: the positions of the nodes ``ids`` (ties by id) without ranking all N nodes.
+
+    One sorted copy of the scores counts the higher ones; ties are counted among smaller ids
+    once per distinct tied value.
+    """
+    s = np.asarray(scores)
+    ids = np.asarray(ids, dtype=np.int64)
+    if ids.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    srt = np.sort(s)
+    v = s[ids]
+    right = np.searchsorted(srt, v, side="right")
+    pos = 1 + (s.shape[0] - right)  # 1 + how many score higher
+    tied = right - np.searchsorted(srt, v, side="left") > 1
+    for value in np.unique(v[tied]):
+        same = np.flatnonzero(s == value)  # ids in increasing order
+        sel = tied & (v == value)
+        pos[sel] += np.searchsorted(same, ids[sel])  # equal scores of smaller id
+    return pos
+
+
+def keys_of(res: RankResult, ids: np.ndarray) -> list[Any]:
+    """The keys of a few nodes, in the order of ``ids``, without reading every key."""
+    ids = np.asarray(ids, dtype=np.int64)
+    if res.run_dir is None or not (res.run_dir / runfiles.SCORES_PARQUET).is_file():
+        return res.keys.take(pa.array(ids)).to_pylist()  # type: ignore[no-any-return]
+    with scratch_duckdb() as con:
+        register_scores(con, "s", res)
+        con.register("wanted", pa.table({"id": pa.array(ids)}))
+        t = fetch_arrow(con, "SELECT id, key FROM s JOIN wanted USING (id)")
+    found = dict(zip(t.column("id").to_pylist(), t.column("key").to_pylist(), strict=True))
+    return [found[i] for i in ids.tolist()]
+
+
+def _key_rank(res: RankResult) -> np.ndarray:
+    """The rank of each node's key (an in-memory result may hold its keys in any order)."""
+    order = np.asarray(pc.sort_indices(res.keys).to_numpy(), dtype=np.int64)
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    return rank
+
+
+def _ranked(res: RankResult, depth: int) -> tuple[np.ndarray, Callable[[list[int]], np.ndarray]]:
+    """The ids of the best ``depth`` nodes, and a function giving the positions of any ids."""
+    if res.run_dir is None:  # in memory: rank everything by (score, key)
+        pos = positions(res.scores, tiebreak=_key_rank(res))
+        ids = np.flatnonzero(pos <= depth)
+        return ids[np.argsort(pos[ids])], lambda q: pos[np.asarray(q, dtype=np.int64)]
+    return top_ids(res.scores, depth), lambda q: positions_of(res.scores, np.asarray(q))
 
 
 def _kind(t: pa.DataType) -> str:
@@ -121,6 +214,11 @@ def comparison(
             f"k must be at least 1 (got {k})", hint="pass -k 1000 or another positive number"
         )
     ra, rb = as_result(a), as_result(b)
+    n_a, n_b = ra.n_nodes, rb.n_nodes
+    # The best max(k, 1000) of each run by numpy on the score vectors (O(N)); positions of
+    # the keys found there are counted afterwards, for those keys only.
+    depth = max(k, *OVERLAP_KS)
+    (top_a, where_a), (top_b, where_b) = _ranked(ra, depth), _ranked(rb, depth)
     with scratch_duckdb(threads) as con:
         ta = register_scores(con, "sa", ra)
         tb = register_scores(con, "sb", rb)
@@ -130,38 +228,79 @@ def comparison(
                 "keys cannot be joined",
                 hint="compare runs over stores built from the same kind of keys",
             )
-        # Positions over the whole run: 1 = highest score, ties by key.
-        for side in ("a", "b"):
-            con.execute(
-                f"CREATE TABLE p{side} AS SELECT key, score, "
-                f"row_number() OVER (ORDER BY score DESC, key) AS pos FROM s{side}"
-            )
-        n_a, n_b, common, new, vanished, l1, max_abs = con.execute(
-            """SELECT (SELECT count(*) FROM pa), (SELECT count(*) FROM pb),
-                      count(*) FILTER (WHERE a.key IS NOT NULL AND b.key IS NOT NULL),
+        common, new, vanished, l1, max_abs = con.execute(
+            """SELECT count(*) FILTER (WHERE a.key IS NOT NULL AND b.key IS NOT NULL),
                       count(*) FILTER (WHERE a.key IS NULL),
                       count(*) FILTER (WHERE b.key IS NULL),
                       fsum(abs(coalesce(a.score, 0) - coalesce(b.score, 0))),
                       max(abs(coalesce(a.score, 0) - coalesce(b.score, 0)))
-               FROM pa a FULL OUTER JOIN pb b ON a.key = b.key"""
+               FROM sa a FULL OUTER JOIN sb b ON a.key = b.key"""
         ).fetchall()[0]
-        overlap: dict[str, float] = {}
-        for kk in sorted({*OVERLAP_KS, k}):
-            cap = max(1, min(kk, n_a, n_b))
-            hits = con.execute(
-                "SELECT count(*) FROM pa a JOIN pb b ON a.key = b.key "
-                "WHERE a.pos <= ? AND b.pos <= ?",
-                [cap, cap],
-            ).fetchall()[0][0]
-            overlap[str(kk)] = hits / cap
-        union = fetch_arrow(
+        con.register("top_a", pa.table({"id": pa.array(top_a, type=pa.int64())}))
+        con.register("top_b", pa.table({"id": pa.array(top_b, type=pa.int64())}))
+        # every key of either top list, with its id in both runs (null where absent)
+        joined = fetch_arrow(
             con,
-            f"""SELECT coalesce(a.key, b.key) AS key, a.pos AS position_a, b.pos AS position_b,
-                      a.score AS score_a, b.score AS score_b
-               FROM pa a FULL OUTER JOIN pb b ON a.key = b.key
-               WHERE a.pos <= {int(k)} OR b.pos <= {int(k)}
-               ORDER BY a.pos NULLS LAST, b.pos NULLS LAST""",
+            """WITH u AS (SELECT key FROM sa JOIN top_a USING (id)
+                          UNION SELECT key FROM sb JOIN top_b USING (id))
+               SELECT u.key, a.id AS id_a, b.id AS id_b
+               FROM u LEFT JOIN sa a ON a.key = u.key LEFT JOIN sb b ON b.key = u.key""",
         )
+    id_a = joined.column("id_a").to_pylist()
+    id_b = joined.column("id_b").to_pylist()
+    pos_a = dict(
+        zip(
+            (i for i in id_a if i is not None),
+            where_a([i for i in id_a if i is not None]).tolist(),
+            strict=True,
+        )
+    )
+    pos_b = dict(
+        zip(
+            (i for i in id_b if i is not None),
+            where_b([i for i in id_b if i is not None]).tolist(),
+            strict=True,
+        )
+    )
+    all_rows = [
+        {
+            "key": key,
+            "position_a": None if ia is None else int(pos_a[ia]),
+            "position_b": None if ib is None else int(pos_b[ib]),
+            "score_a": None if ia is None else float(ra.scores[ia]),
+            "score_b": None if ib is None else float(rb.scores[ib]),
+        }
+        for key, ia, ib in zip(joined.column("key").to_pylist(), id_a, id_b, strict=True)
+    ]
+    overlap: dict[str, float] = {}
+    for kk in sorted({*OVERLAP_KS, k}):
+        cap = max(1, min(kk, n_a, n_b))
+        hits = sum(
+            1
+            for r in all_rows
+            if r["position_a"] is not None
+            and r["position_b"] is not None
+            and r["position_a"] <= cap
+            and r["position_b"] <= cap
+        )
+        overlap[str(kk)] = hits / cap
+    big = n_a + n_b + 1  # sorts absent positions last
+    union_rows = sorted(
+        (r for r in all_rows if (r["position_a"] or big) <= k or (r["position_b"] or big) <= k),
+        key=lambda r: (r["position_a"] or big, r["position_b"] or big),
+    )
+    union = pa.Table.from_pylist(
+        union_rows,
+        schema=pa.schema(
+            [
+                ("key", joined.schema.field("key").type),
+                ("position_a", pa.int64()),
+                ("position_b", pa.int64()),
+                ("score_a", pa.float64()),
+                ("score_b", pa.float64()),
+            ]
+        ),
+    )
     rows = union.to_pylist()
     tau, rho = _correlations(
         [r["score_a"] or 0.0 for r in rows], [r["score_b"] or 0.0 for r in rows]

@@ -26,9 +26,9 @@ import pyarrow.parquet as pq
 from ..errors import BadInputError
 from ..store.atomic import fsync_dir
 from . import runfiles
-from .compare import RunLike, _sql_str, as_result, scratch_duckdb
+from .compare import RunLike, _sql_str, as_result, positions, scratch_duckdb
 from .result import RankResult
-from .top import open_run_store, positions
+from .top import open_run_store
 
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")  # a spreadsheet reads these as a formula
 _ESCAPE_STARTS = (*FORMULA_STARTS, "'")  # the apostrophe too, so that escaping is reversible

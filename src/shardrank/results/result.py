@@ -71,9 +71,9 @@ class RankResult:
 
     def top(self, k: int = 10) -> list[tuple[Any, float]]:
         """The k highest scores as (key, score), ties broken by key order (= id order)."""
-        k = min(k, self.n_nodes)
-        idx = np.argpartition(-self.scores, k - 1)[:k] if k < self.n_nodes else np.arange(self.n_nodes)
-        idx = idx[np.lexsort((idx, -self.scores[idx]))]
+        from .compare import top_ids  # argpartition alone may keep any of the nodes tied at the k-th score
+
+        idx = top_ids(self.scores, k)
         keys = self.keys.take(pa.array(idx)).to_pylist()
         return list(zip(keys, self.scores[idx].tolist(), strict=True))
 

@@ -17,10 +17,17 @@ from .. import settings
 from ..errors import BadInputError
 from ..store.reader import StoreReader
 from . import runfiles
-from .compare import RunLike, _sql_str, as_result, fetch_arrow, scratch_duckdb
+from .compare import (
+    RunLike,
+    _sql_str,
+    as_result,
+    fetch_arrow,
+    keys_of,
+    positions_of,
+    scratch_duckdb,
+    top_ids,
+)
 from .result import RankResult
-
-_COUNT_LIMIT = 64  # up to this many rows, count positions directly (O(N) each); beyond, sort once
 
 
 def open_run_store(res: RankResult, store: str | Path | None = None) -> StoreReader:
@@ -48,27 +55,6 @@ def open_run_store(res: RankResult, store: str | Path | None = None) -> StoreRea
             hint="pass --store with the store the run used",
         )
     return reader
-
-
-def positions(scores: np.ndarray) -> np.ndarray:
-    """int64[N]: the 1-based position of every node (highest first, ties by id = key order)."""
-    order = np.argsort(-np.asarray(scores), kind="stable")
-    pos = np.empty(order.shape[0], dtype=np.int64)
-    pos[order] = np.arange(1, order.shape[0] + 1, dtype=np.int64)
-    return pos
-
-
-def positions_of(scores: np.ndarray, ids: np.ndarray) -> np.ndarray:
-    """The positions of a few nodes (``ids``) without sorting all N scores when few are asked."""
-    ids = np.asarray(ids, dtype=np.int64)
-    if ids.size > _COUNT_LIMIT:
-        return positions(scores)[ids]
-    out = np.empty(ids.size, dtype=np.int64)
-    for j, i in enumerate(ids.tolist()):
-        s = scores[i]
-        # higher scores, plus equal scores of smaller id (= smaller key)
-        out[j] = 1 + np.count_nonzero(scores > s) + np.count_nonzero(scores[:i] == s)
-    return out
 
 
 def _glob(pattern: str) -> str:
@@ -143,9 +129,8 @@ def top_rows(
     n = res.n_nodes
     if match is None:
         k = min(k, n)
-        part = np.argpartition(-scores, k - 1)[:k] if k < n else np.arange(n)
-        ids = part[np.lexsort((part, -scores[part]))].astype(np.int64)
-        keys = res.keys.take(pa.array(ids)).to_pylist()
+        ids = top_ids(scores, k)
+        keys = keys_of(res, ids)
         pos = np.arange(1, ids.size + 1, dtype=np.int64)
     else:
         ids, keys = _matching(res, match, k)
