@@ -149,3 +149,24 @@ def test_a_torn_checkpoint_directory_is_ignored_and_cleaned(tmp_path: Path) -> N
     assert not torn.exists()
     state = json.loads((tmp_path / "checkpoints" / "iter-000002" / "state.json").read_text())
     assert state["state"]["verify_threshold"] == 1.25e-10  # floats survive JSON exactly
+
+
+# ---- engine threads -----------------------------------------------------------------------------
+
+
+def test_threads_none_means_all_of_numbas_threads(build, tmp_path: Path) -> None:
+    """An API run without ``threads`` uses every core even after a run in the same process
+    asked for one (before the fix it silently kept the earlier run's count)."""
+    import numba
+
+    import shardrank
+
+    store = build([1, 2, 3], [2, 3, 1])
+    before = numba.get_num_threads()
+    try:
+        one = shardrank.rank(store, tmp_path / "a", RankOptions(threads=1))
+        default = shardrank.rank(store, tmp_path / "b", RankOptions())
+    finally:
+        numba.set_num_threads(before)
+    assert one.summary["threads"] == 1
+    assert default.summary["threads"] == numba.config.NUMBA_NUM_THREADS

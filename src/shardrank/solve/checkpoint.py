@@ -74,9 +74,14 @@ def write_checkpoint(run: Path, r: np.ndarray, state: IterState, meta: dict[str,
     return final
 
 
-def load_checkpoint(run: Path, n_nodes: int) -> tuple[np.ndarray, IterState, dict[str, Any], list[str]] | None:
-    """The newest checkpoint that verifies: (scores, state, meta, problems with newer ones)."""
-    problems: list[str] = []
+def load_checkpoint(run: Path, n_nodes: int, problems: list[str] | None = None,
+                    ) -> tuple[np.ndarray, IterState, dict[str, Any], list[str]] | None:
+    """The newest checkpoint that verifies: (scores, state, meta, problems with newer ones).
+
+    ``problems`` (if given) also receives why each skipped checkpoint failed, so that they can
+    be reported when none verifies and None is returned.
+    """
+    problems = [] if problems is None else problems
     for d in _ckpt_dirs(run):
         try:
             info = json.loads((d / "state.json").read_text())

@@ -51,8 +51,9 @@ class LocalEngine:
     def __init__(self, reader: StoreReader, problem: Problem, threads: int | None = None) -> None:
         self.reader = reader
         self.problem = problem
-        if threads:
-            numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+        # None means all of numba's threads: an earlier run in this process may have set fewer
+        cores = numba.config.NUMBA_NUM_THREADS
+        numba.set_num_threads(min(threads, cores) if threads else cores)
         self.threads = numba.get_num_threads()
         self.w_out = np.asarray(reader.out_weight())
         self.s = np.empty(reader.n_nodes, dtype=np.float64)

@@ -229,8 +229,11 @@ def resume(run: str | Path, reporter: Reporter | None = None, store: str | Path 
     if tele_info["hash"] != doc["teleport"]["hash"]:
         raise BadInputError(f"{o.teleport}: the teleport table changed since the run started",
                             hint="rank into a new run instead")
-    loaded = load_checkpoint(p, reader.n_nodes)
+    skipped: list[str] = []
+    loaded = load_checkpoint(p, reader.n_nodes, skipped)
     if loaded is None:
+        for pr in skipped:
+            rep.event("warning", f"skipped damaged checkpoint {pr}")
         rep.event("resume", "no usable checkpoint: starting over from the first iteration")
         r, init_info = _start_vector(reader, o, tele, rep)
         state = IterState()
