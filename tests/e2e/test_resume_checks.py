@@ -106,7 +106,7 @@ def test_both_checkpoints_damaged_starts_over(
     state.write_text(state.read_text()[:40])  # torn JSON
     assert main(["resume", str(stopped["run"]), "--threads", "1"]) == 0
     err = capsys.readouterr().err
-    # each skipped checkpoint is named with its reason (before the fix only "starting over" was said)
+    # each skipped checkpoint is named with its reason (before the fix: only "starting over")
     assert "skipped damaged checkpoint iter-000006: scores.npy does not match its checksum" in err
     assert "skipped damaged checkpoint iter-000005" in err and "starting over" in err
     assert (stopped["run"] / "scores.npy").read_bytes() == stopped["ref"]
