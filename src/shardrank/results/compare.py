@@ -1,8 +1,10 @@
 """Compare two runs by key: L1 distance, rank correlations, top-k overlap, risers and fallers.
 
-The join runs in DuckDB over the two ``scores.parquet`` files, in a scratch database that may
-spill to disk, so memory stays bounded whatever N is. Only the union of both top-k (at most
-2k rows) comes back into Python.
+The join by key runs in DuckDB over the two ``scores.parquet`` files, in a scratch database
+that spills to disk, so it never holds the keys in memory. Positions come from the
+(memory-mapped) score vectors in numpy: a partial selection finds each top list in O(N), and
+one sorted copy (8 bytes a node, one run at a time) counts the positions of the few keys that
+need one. Only the union of both top lists (a few thousand rows) comes back into Python.
 
 Conventions (shared with ``top`` and ``export``):
 
