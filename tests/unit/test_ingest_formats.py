@@ -7,6 +7,7 @@ The reference is the edge list the test itself wrote, turned into a CSR matrix b
 from __future__ import annotations
 
 import gzip
+import json
 import shutil
 import subprocess
 from pathlib import Path
@@ -179,3 +180,24 @@ def test_parquet_parts_with_int32_and_int64_keys(tmp_path: Path) -> None:
     pq.write_table(pa.table({"src": pa.array(INT_SRC[half:], pa.int64()), "dst": pa.array(INT_DST[half:], pa.int64())}),
                    d / "part-1.parquet")
     assert_store_matches(_build(tmp_path, [d]), INT_SRC, INT_DST)
+
+
+def test_hidden_directories_are_skipped(tmp_path: Path) -> None:
+    # a writer's unfinished output (_temporary/, .staging/) must not be read as edges
+    d = tmp_path / "edges"
+    _parquet_parts(d, INT_SRC, INT_DST, 2)
+    _parquet_parts(d / "_temporary" / "0", INT_SRC, INT_DST, 2)
+    _parquet_parts(d / ".staging", INT_SRC, INT_DST, 2)
+    assert_store_matches(_build(tmp_path, [d]), INT_SRC, INT_DST)
+    m = json.loads((tmp_path / "out.store" / "manifest.json").read_text())
+    assert m["input"]["n_files"] == 2 and m["counts"]["rows_read"] == len(INT_SRC)
+
+
+def test_store_built_inside_its_input_directory(tmp_path: Path) -> None:
+    # rebuilding `edges/` into `edges/.../store` must not read the old store's nodes.parquet
+    d = tmp_path / "edges"
+    _parquet_parts(d, INT_SRC, INT_DST, 2)
+    out = d / "graph"
+    for overwrite in (False, True):
+        shardrank.build_store([d], out, BuildOptions(overwrite=overwrite))
+        assert_store_matches(out, INT_SRC, INT_DST)

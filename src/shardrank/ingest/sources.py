@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..errors import BadInputError
+from ..store import layout
 
 PARQUET_EXT = (".parquet", ".parq", ".pq")
 TEXT_EXT = (".csv", ".tsv", ".txt", ".edges", ".el")
@@ -64,6 +65,23 @@ def _is_data_file(p: Path) -> bool:
     return low.endswith(PARQUET_EXT + TEXT_EXT)
 
 
+def _walk_visible(top: Path) -> list[tuple[str, list[str]]]:
+    """(directory, file names) under ``top``, skipping hidden directories.
+
+    Writers keep unfinished or failed output in ``_temporary``, ``.spark-staging`` and the like
+    (and a build keeps its own ``.STORE.partial-PID``); reading them would duplicate edges.
+    Stores are skipped too: their nodes.parquet is not an edge table.
+    """
+    out = []
+    for root, dirs, fs in os.walk(top):
+        if layout.MANIFEST in fs and layout.SHARD_DIR in dirs:  # a store (say, built into its input dir)
+            dirs[:] = []
+            continue
+        dirs[:] = [d for d in dirs if not d.startswith((".", "_"))]
+        out.append((root, fs))
+    return out
+
+
 def resolve_inputs(args: list[str]) -> list[InputFile]:
     """Expand files, directories (recursively, hive layout included) and globs, in sorted order."""
     if not args:
@@ -80,9 +98,7 @@ def resolve_inputs(args: list[str]) -> list[InputFile]:
         if not p.exists():
             raise BadInputError(f"{a}: no such file or directory", hint="check the path")
         if p.is_dir():
-            hits = sorted(
-                Path(root) / f for root, _d, fs in os.walk(p) for f in fs if _is_data_file(Path(f))
-            )
+            hits = sorted(Path(root) / f for root, fs in _walk_visible(p) for f in fs if _is_data_file(Path(f)))
             if not hits:
                 raise BadInputError(
                     f"{a}: directory holds no Parquet or CSV/TSV files",
