@@ -201,3 +201,9 @@ def test_store_built_inside_its_input_directory(tmp_path: Path) -> None:
     for overwrite in (False, True):
         shardrank.build_store([d], out, BuildOptions(overwrite=overwrite))
         assert_store_matches(out, INT_SRC, INT_DST)
+
+
+def test_file_names_with_quotes_and_glob_characters(tmp_path: Path) -> None:
+    f = tmp_path / "it's [1].parquet"  # an existing name is taken as is, not as a pattern
+    pq.write_table(pa.table({"src": INT_SRC, "dst": INT_DST}), f)
+    assert_store_matches(_build(tmp_path, [f]), INT_SRC, INT_DST)

@@ -88,7 +88,7 @@ def resolve_inputs(args: list[str]) -> list[InputFile]:
         raise BadInputError("no edge files given", hint="pass one or more Parquet/CSV files or directories")
     files: list[Path] = []
     for a in args:
-        if any(ch in a for ch in "*?["):
+        if any(ch in a for ch in "*?[") and not Path(a).exists():  # a name may hold "[1]"
             hits = sorted(Path(h) for h in glob.glob(a, recursive=True) if Path(h).is_file())
             if not hits:
                 raise BadInputError(f"{a}: no files match this pattern", hint="check the path and quoting")
