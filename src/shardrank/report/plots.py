@@ -26,7 +26,7 @@ _BINS = 240  # log-spaced bins of score x N for the distribution plot
 FLOOR_X_N = 1e-4
 
 _STYLE: Any = {  # Any: matplotlib types rc keys as a Literal union
-    "font.size": 9.0,
+    "font.size": 10.0,
     "axes.edgecolor": palette.RULE,
     "axes.labelcolor": palette.INK,
     "axes.titlesize": 10.0,
