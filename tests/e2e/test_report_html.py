@@ -11,6 +11,7 @@ import re
 import shutil
 import subprocess
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -173,3 +174,12 @@ def test_renders_on_a_phone_width(report_pair: tuple[Path, Path], tmp_path: Path
     img, log = _render(report_pair[0], tmp_path, 390, 2400)
     assert [line for line in log.splitlines() if "CONSOLE" in line] == []
     assert _pixels_of(img, palette.LINE_A) > 300
+
+
+def test_report_without_its_store(build: Any, tmp_path: Path) -> None:
+    # nightly rotation may delete old stores; the report of an old run must still be written
+    store = build(["p", "q", "r"], ["q", "r", "p"])
+    shardrank.rank(store, tmp_path / "old.run")
+    shutil.rmtree(store)
+    html = write_report(tmp_path / "old.run", tmp_path / "old.html").read_text(encoding="utf-8")
+    assert "Graph facts and degrees are left out" in html and "Top 3" in html
