@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
+import resource
 import shutil
 import subprocess
 import sys
@@ -61,26 +61,36 @@ def churn(src_dir: Path, out_dir: Path, frac: float, seed: int) -> dict[str, Any
     return {"parts": len(parts), "edges": total, "rewired": changed, "fraction": changed / total}
 
 
-def refresh(edges: Path, home: Path, extra: list[str]) -> tuple[float, dict[str, Any]]:
-    cmd = [sys.executable, "-c", CLI, "refresh", "--edges", str(edges), "--home", str(home), "-q", *extra]
-    t0 = time.perf_counter()
+def _children_cpu() -> float:
+    ru = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return ru.ru_utime + ru.ru_stime
+
+
+def _run(cmd: list[str]) -> tuple[float, float, str, str, int]:
+    """(wall seconds, CPU seconds of the child, stdout, stderr, exit code). The CPU time (the
+    growth of RUSAGE_CHILDREN across one waited-for child) is steadier than wall time on a
+    machine shared with other jobs."""
+    c0, t0 = _children_cpu(), time.perf_counter()
     p = subprocess.run(cmd, capture_output=True, text=True)
-    wall = time.perf_counter() - t0
-    if p.returncode != 0:
-        raise SystemExit(f"refresh failed (exit {p.returncode}):\n{p.stderr[-3000:]}")
-    return wall, json.loads(p.stdout.strip().splitlines()[-1])
+    return time.perf_counter() - t0, _children_cpu() - c0, p.stdout, p.stderr, p.returncode
 
 
-def rank(store: Path, out: Path, extra: list[str]) -> tuple[float, dict[str, Any]]:
+def refresh(edges: Path, home: Path, extra: list[str]) -> tuple[float, float, dict[str, Any]]:
+    cmd = [sys.executable, "-c", CLI, "refresh", "--edges", str(edges), "--home", str(home), "-q", *extra]
+    wall, cpu, out, err, code = _run(cmd)
+    if code != 0:
+        raise SystemExit(f"refresh failed (exit {code}):\n{err[-3000:]}")
+    return wall, cpu, json.loads(out.strip().splitlines()[-1])
+
+
+def rank(store: Path, out: Path, extra: list[str]) -> tuple[float, float, dict[str, Any]]:
     if out.exists():
         shutil.rmtree(out)
     cmd = [sys.executable, "-c", CLI, "rank", str(store), "--out", str(out), "-q", *extra]
-    t0 = time.perf_counter()
-    p = subprocess.run(cmd, capture_output=True, text=True)
-    wall = time.perf_counter() - t0
-    if p.returncode != 0:
-        raise SystemExit(f"rank failed (exit {p.returncode}):\n{p.stderr[-3000:]}")
-    return wall, json.loads((out / "run.json").read_text())
+    wall, cpu, _out, err, code = _run(cmd)
+    if code != 0:
+        raise SystemExit(f"rank failed (exit {code}):\n{err[-3000:]}")
+    return wall, cpu, json.loads((out / "run.json").read_text())
 
 
 def read_all(folder: Path) -> None:
@@ -122,16 +132,17 @@ def main(argv: list[str] | None = None) -> int:
     print(f"snapshot B: {snap_b} ({info['rewired']:,} of {info['edges']:,} edges rewired, "
           f"{info['fraction']:.3%}, in all {info['parts']} parts)", flush=True)
     read_all(a.edges)
-    t_a, s_a = refresh(a.edges, home_w, extra)
-    print(f"night 1 (cold, setup): {t_a:.1f} s, {s_a['iterations']['count']} iterations", flush=True)
+    t_a, c_a, s_a = refresh(a.edges, home_w, extra)
+    print(f"night 1 (cold, setup): {t_a:.1f} s wall, {c_a:.1f} s CPU, {s_a['iterations']['count']} iterations", flush=True)
     read_all(snap_b)
-    t_w, s_w = refresh(snap_b, home_w, extra)
-    print(f"night 2 warm: {t_w:.1f} s", flush=True)
-    t_c, s_c = refresh(snap_b, home_c, extra)
-    print(f"night 2 cold: {t_c:.1f} s", flush=True)
+    t_w, c_w, s_w = refresh(snap_b, home_w, extra)
+    print(f"night 2 warm: {t_w:.1f} s wall, {c_w:.1f} s CPU", flush=True)
+    t_c, c_c, s_c = refresh(snap_b, home_c, extra)
+    print(f"night 2 cold: {t_c:.1f} s wall, {c_c:.1f} s CPU", flush=True)
     out: dict[str, Any] = {"edges": str(a.edges), "churn": info, "threads": a.threads, "memory": a.memory,
-                           "night1": {"wall": t_a, "summary": s_a},
-                           "warm": {"wall": t_w, "summary": s_w}, "cold": {"wall": t_c, "summary": s_c}}
+                           "night1": {"wall": t_a, "cpu": c_a, "summary": s_a},
+                           "warm": {"wall": t_w, "cpu": c_w, "summary": s_w},
+                           "cold": {"wall": t_c, "cpu": c_c, "summary": s_c}}
     print(f"\nrefresh of snapshot B ({s_w['nodes']:,} nodes, {s_w['edges']:,} edges)")
     print(f"  {'':<22} {'warm':>12} {'cold':>12} {'warm/cold':>8}")
     print(row("iterations", s_w["iterations"]["count"], s_c["iterations"]["count"]))
@@ -140,20 +151,22 @@ def main(argv: list[str] | None = None) -> int:
         print(row(f"{p} s", s_w["seconds"].get(p), s_c["seconds"].get(p)))
     print(row("total (in process) s", s_w["seconds"]["total"], s_c["seconds"]["total"]))
     print(row("wall (process) s", t_w, t_c))
+    print(row("CPU (process) s", c_w, c_c))
     print(f"  cold estimate in the warm summary: {s_w['iterations'].get('cold_estimate')} iterations; "
           f"error bounds {s_w['error_bound']:.2e} (warm), {s_c['error_bound']:.2e} (cold)")
     if a.solver:
         store = home_w / s_w["store"]
         prev = home_w / s_a["run"]
-        tc, dc = rank(store, a.work / "solver-cold", extra[2:])
-        tw, dw = rank(store, a.work / "solver-warm", [*extra[2:], "--init", str(prev)])
+        tc, cc, dc = rank(store, a.work / "solver-cold", extra[2:])
+        tw, cw, dw = rank(store, a.work / "solver-warm", [*extra[2:], "--init", str(prev)])
         print("\nsolver only (rank of the same store, outside refresh)")
         print(row("iterations", dw["iterations"], dc["iterations"]))
         print(row("iterate s", dw["timings"]["iterate_seconds"], dc["timings"]["iterate_seconds"]))
         print(row("open s (incl. warm join)", dw["timings"]["open_seconds"], dc["timings"]["open_seconds"]))
         print(row("wall (process) s", tw, tc))
-        out["solver"] = {"cold": {"wall": tc, "iterations": dc["iterations"], "timings": dc["timings"]},
-                         "warm": {"wall": tw, "iterations": dw["iterations"], "timings": dw["timings"]}}
+        print(row("CPU (process) s", cw, cc))
+        out["solver"] = {"cold": {"wall": tc, "cpu": cc, "iterations": dc["iterations"], "timings": dc["timings"]},
+                         "warm": {"wall": tw, "cpu": cw, "iterations": dw["iterations"], "timings": dw["timings"]}}
     if a.json_out:
         a.json_out.write_text(json.dumps(out, indent=2, default=str))
     if not a.keep_work:
