@@ -260,3 +260,16 @@ def test_too_little_memory_is_a_clear_error(tmp_path: Path, out: Path, capsys: p
     assert rc == 2 and "Traceback" not in err, err
     assert "ran out of memory" in err and "--memory" in err
     _nothing_left(out)
+
+
+@pytest.mark.parametrize(("src", "dst", "w"), [
+    ([1, 1, 2], [2, 2, 1], [1e308, 1e308, 1.0]),  # merged duplicates: 2e308
+    ([1, 2, 2], [2, 1, 3], [1.0, 1e308, 1e308]),  # node 2's out-weight: 2e308
+])
+def test_weights_whose_sums_overflow(src: list[int], dst: list[int], w: list[float], tmp_path: Path, out: Path,
+                                     capsys: pytest.CaptureFixture[str]) -> None:
+    # 2e308 overflows IEEE 754 double precision (largest finite value about 1.8e308): the store
+    # would hold infinite weights that verify rejects
+    f = tmp_path / "huge.parquet"
+    pq.write_table(pa.table({"src": src, "dst": dst, "w": w}), f)
+    _fails([str(f), "--weight", "w"], out, capsys, "huge.parquet", "overflows", "scale the weights")

@@ -395,6 +395,13 @@ def _write(
                 "(FORMAT parquet, COMPRESSION zstd)")
     w.add_file(layout.NODES)
     out_deg, out_w = _degrees(con, "s", n, weighted)
+    if out_w is not None and not np.all(np.isfinite(out_w)):
+        # every weight is positive, so finite out-weights mean finite merged edge weights too
+        raise BadInputError(
+            f"{files[0].path}: weights too large: the out-weight (sum of out-link weights) of "
+            f"{int(np.count_nonzero(~np.isfinite(out_w))):,} nodes overflows a float64",
+            hint="scale the weights down (only their ratios matter)",
+        )
     in_deg, _ = _degrees(con, "d", n, False)
     w.write_array(layout.OUT_DEGREE, out_deg)
     w.write_array(layout.IN_DEGREE, in_deg)

@@ -79,6 +79,8 @@ def verify_store(
     expect = w_implied if w_implied is not None else out_implied.astype(np.float64)
     if ow.dtype != np.float64 or ow.shape != (n,) or not np.allclose(ow, expect, rtol=1e-12, atol=0):
         raise _fail(reader.path / layout.OUT_WEIGHT, "differs from the out-weights the shards imply")
+    if not np.all(np.isfinite(ow)) or np.any(ow[out_deg > 0] <= 0):
+        raise _fail(reader.path / layout.OUT_WEIGHT, "out-weights must be finite, and positive for every node with out-links")
     t = pq.read_table(reader.path / layout.NODES, columns=["id"])
     ids = t.column("id").to_numpy()
     if ids.shape != (n,) or not np.array_equal(ids, np.arange(n)):
