@@ -145,6 +145,9 @@ def test_second_concurrent_refresh_exits_75_and_a_dead_holder_frees_the_lock(
         assert "already running" in err and f"pid {p.pid}" in err and "hint:" in err
     finally:
         kill(p)
-    # the kernel released the dead holder's lock: the next refresh runs (and resumes)
-    assert refresh(nights["n1"], home) == 0
-    assert_current_is_valid(home, "gen-000001")
+    # the kernel released the dead holder's lock: the next refresh runs. Its snapshot is a new
+    # one, so the unfinished generation 1 is abandoned (not resumed) and generation 2 published.
+    assert refresh(nights["n2"], home) == 0
+    run = assert_current_is_valid(home, "gen-000002")
+    assert json.loads((run / "refresh.json").read_text())["resumed"] is None
+    assert json.loads((home / "runs/gen-000001/run.json").read_text())["status"] == "running"
