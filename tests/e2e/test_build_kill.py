@@ -25,18 +25,11 @@ from shardrank.cli.main import main
 
 pytestmark = pytest.mark.slow
 
-N_EDGES = 1_000_000  # about 1 s of build on one core: enough room for every kill point
+N_EDGES = 600_000  # about 1 s of build on one core: enough room for every kill point
 
-# (phase event that triggers the kill, extra delay in seconds): before, inside and after the
-# DuckDB statements, while shards stream out, while inputs are hashed, during the final fsync
-KILL_POINTS = [
-    ("reading edges", 0.0),
-    ("mapping keys to ids", 0.05),
-    ("mapping edges and merging duplicates", 0.2),
-    ("degrees", 0.0),
-    ("writing shards", 0.0),
-    ("fingerprint", 0.0),
-]
+# the build has two paths (a counting sort for unweighted integer keys, SQL otherwise) with
+# their own phases; a probe run of each lists them, and the test kills a build at every one
+PATHS = {"counting-sort": [], "sql": ["--weight", "w"]}
 
 
 @pytest.fixture(scope="module")
@@ -46,7 +39,8 @@ def big_input(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, int]:
     src = rng.integers(0, N_EDGES // 6, N_EDGES)
     dst = rng.integers(0, N_EDGES // 6, N_EDGES)
     f = d / "edges.parquet"
-    pq.write_table(pa.table({"src": src, "dst": dst}), f, row_group_size=250_000)
+    w = rng.uniform(0.5, 2.0, N_EDGES)
+    pq.write_table(pa.table({"src": src, "dst": dst, "w": w}), f, row_group_size=250_000)
     # the normalised edge count, worked out with numpy alone: distinct (src, dst) pairs
     pairs = np.sort(src * (N_EDGES // 6) + dst)
     n_edges = 1 + int(np.count_nonzero(np.diff(pairs)))
@@ -77,19 +71,35 @@ def _kill_at(p: subprocess.Popen[str], phase: str, delay: float) -> bool:
     return False
 
 
+def _phases(edges: Path, out: Path, *extra: str) -> list[str]:
+    """The phases a full build reports, in order (publishing excluded)."""
+    p = _start(edges, out, *extra)
+    assert p.stderr is not None
+    names: list[str] = []
+    for line in p.stderr:
+        ph = json.loads(line).get("phase") if line.startswith("{") else None
+        if ph and ph != "publish" and ph not in names:
+            names.append(ph)
+    assert p.wait() == 0
+    return names
+
+
 def _partials(out: Path) -> list[Path]:
     return sorted(out.parent.glob(f".{out.name}.partial-*"))
 
 
+@pytest.mark.parametrize("path", list(PATHS))
 def test_killed_builds_leave_no_store_and_the_rerun_cleans_up(
-    big_input: tuple[Path, int], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+    path: str, big_input: tuple[Path, int], tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     edges, n_edges = big_input
+    phases = _phases(edges, tmp_path / "probe.store", *PATHS[path])
+    assert len(phases) >= 4, phases
     out = tmp_path / "crawl.store"
     killed = 0
-    for phase, delay in KILL_POINTS:
-        p = _start(edges, out)
-        if not _kill_at(p, phase, delay):
+    for phase in phases:
+        p = _start(edges, out, *PATHS[path])
+        if not _kill_at(p, phase, 0.0):
             continue
         killed += 1
         assert not out.exists(), f"a store appeared after a kill at {phase!r}"
@@ -97,14 +107,14 @@ def test_killed_builds_leave_no_store_and_the_rerun_cleans_up(
         assert main(["verify", str(out)]) != 0
         # this build's sibling is there; the ones of earlier killed builds were cleaned at its start
         assert [q.name for q in _partials(out)] == [f".{out.name}.partial-{p.pid}"], "the kill came too late?"
-    assert killed >= len(KILL_POINTS) - 1
+    assert killed >= len(phases) - 1
     capsys.readouterr()
-    assert main(["build", str(edges), "--out", str(out), "--block-nodes", "4096", "-q"]) == 0
+    assert main(["build", str(edges), "--out", str(out), "--block-nodes", "4096", "-q", *PATHS[path]]) == 0
     assert _partials(out) == []  # the interrupted builds' siblings are gone
     assert main(["verify", str(out), "-q"]) == 0
     assert main(["inspect", str(out), "--json"]) == 0
     facts = json.loads(capsys.readouterr().out)
-    assert facts["edges"] == n_edges
+    assert facts["edges"] == n_edges and facts["weighted"] == (path == "sql")
 
 
 def test_kill_during_publish_leaves_nothing_or_a_sound_store(big_input: tuple[Path, int], tmp_path: Path) -> None:
@@ -126,7 +136,7 @@ def test_killed_overwrite_keeps_the_old_store(big_input: tuple[Path, int], tmp_p
     out = tmp_path / "crawl.store"
     assert main(["build", str(small), "--out", str(out), "-q"]) == 0
     before = (out / "manifest.json").read_bytes()
-    for phase in ("mapping edges and merging duplicates", "writing shards"):
+    for phase in _phases(edges, tmp_path / "probe.store")[1:3]:
         p = _start(edges, out, "--overwrite")
         assert _kill_at(p, phase, 0.0)
         assert (out / "manifest.json").read_bytes() == before
@@ -136,4 +146,4 @@ def test_killed_overwrite_keeps_the_old_store(big_input: tuple[Path, int], tmp_p
     capsys.readouterr()
     assert main(["inspect", str(out), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["edges"] == n_edges
-    assert sorted(p.name for p in out.parent.iterdir()) == ["crawl.store", "small.csv"]
+    assert sorted(p.name for p in out.parent.iterdir()) == ["crawl.store", "probe.store", "small.csv"]
