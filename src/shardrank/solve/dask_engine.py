@@ -95,7 +95,7 @@ def _connect(options: RankOptions) -> tuple[Client, LocalCluster | None]:
     n = options.workers or os.cpu_count() or 1
     # one thread per worker process: the kernels release the GIL, and numba's parallel
     # regions are not shared between threads of one process
-    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None,
+    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
                            silence_logs=logging.ERROR)
     return Client(cluster, set_as_default=False), cluster
 

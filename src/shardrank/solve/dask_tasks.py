@@ -93,7 +93,9 @@ def _reader(job: StepJob) -> StoreReader:
 def _vector(loc: urls.Location) -> np.ndarray:
     """A float64 vector the driver wrote: memory-mapped when local, else fetched once per worker."""
     if loc.local is not None:
-        return np.asarray(np.load(loc.local, mmap_mode="r", allow_pickle=False))
+        # copy-on-write mapping: shares the page cache like "r", and, being writable, gives the
+        # kernels the same array types as the local engine's (one compiled version, not two)
+        return np.asarray(np.load(loc.local, mmap_mode="c", allow_pickle=False))
     with _LOCK:
         v = _VECTORS.get(loc.url)
         if v is None:
