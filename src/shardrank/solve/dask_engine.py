@@ -110,9 +110,9 @@ class DaskEngine:
     name = "dask"
 
     def __init__(self, reader: StoreReader, problem: Problem, client: Client, exchange: urls.Location,
-                 threads: int = 1, cluster: LocalCluster | None = None) -> None:
+                 threads: int = 0, cluster: LocalCluster | None = None) -> None:
         self.reader, self.problem, self.client, self.cluster = reader, problem, client, cluster
-        self.threads = threads  # numba threads inside each task
+        self.threads = threads  # numba threads inside each task (0: see StepJob.threads)
         self.chunk = settings.ROW_CHUNK
         self.blocks = reader.manifest.blocks
         self.w_out = np.asarray(reader.out_weight())
@@ -138,7 +138,7 @@ class DaskEngine:
             exchange = urls.parse_location(Path(run_dir) / EXCHANGE_DIR)
         client, cluster = _connect(options)
         try:
-            return cls(reader, problem, client, exchange, options.threads or 1, cluster)
+            return cls(reader, problem, client, exchange, options.threads or 0, cluster)
         except BaseException:
             client.close()
             if cluster is not None:

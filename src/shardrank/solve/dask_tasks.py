@@ -45,7 +45,7 @@ class StepJob:
     n_nodes: int
     damping: float
     chunk: int
-    threads: int  # numba threads inside one task
+    threads: int  # numba threads inside one task; 0: 1 in a power step, every core in a sweep
     firsts: tuple[int, ...]  # first node of every block (Gauss-Seidel applies fresh blocks)
 
 
@@ -124,9 +124,15 @@ def _set_threads(n: int) -> None:
     numba.set_num_threads(max(1, min(n, numba.config.NUMBA_NUM_THREADS)))
 
 
+def _default_threads(sweep: bool) -> int:
+    # power steps run one task per worker thread at once: one kernel thread each; a sweep's
+    # chain runs one task at a time on the whole cluster, so that task takes every core
+    return numba.config.NUMBA_NUM_THREADS if sweep else 1
+
+
 def power_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
     """New scores of block ``t`` from the step's scaled scores; (scores, residual partials)."""
-    _set_threads(job.threads)
+    _set_threads(job.threads or _default_threads(sweep=False))
     step = urls.parse_location(job.step_dir)
     offsets, sources, w = _arrays(_reader(job).shard(t.index))
     s = _vector(step_file(step, "s"))
@@ -156,7 +162,7 @@ def _sweep_vector(job: StepJob, step: urls.Location, block: int) -> np.ndarray:
 
 def sweep_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
     """Gauss-Seidel update of block ``t``, seeing the fresh scores of every block before it."""
-    _set_threads(job.threads)
+    _set_threads(job.threads or _default_threads(sweep=True))
     step = urls.parse_location(job.step_dir)
     reader = _reader(job)
     offsets, sources, w = _arrays(reader.shard(t.index))

@@ -1,0 +1,107 @@
+#!/usr/bin/env python3
+"""The Dask engine on a LocalCluster against the local engine, on one store.
+
+Each run is `shardrank rank` in a subprocess (what a user runs), to the same --tol, for each
+method. The Dask runs use a LocalCluster this script starts (N worker processes, one thread
+each; started once and restarted between runs so each worker's peak memory is its own run's).
+Printed per run: iterations, iterate seconds (run.json), seconds per iteration, the ratio to
+the local engine, driver and worker peak memory, and whether the scores are bitwise equal.
+
+usage: scripts/bench_dask.py [--store /work/bench-data/s22] [--workers 2] [--tol 1e-9]
+                             [--methods power,gauss-seidel] [--out /tmp/bench-dask]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import resource
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+CLI = str(Path(sys.executable).with_name("shardrank"))
+
+
+def _worker_peak_rss() -> int:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+
+
+def _rank(store: str, run: Path, method: str, tol: float, extra: list[str]) -> dict[str, Any]:
+    shutil.rmtree(run, ignore_errors=True)
+    t0 = time.monotonic()
+    p = subprocess.run([CLI, "rank", store, "--out", str(run), "--method", method, "--tol", str(tol),
+                        "--log-format", "json", *extra], capture_output=True, text=True)
+    wall = time.monotonic() - t0
+    if p.returncode not in (0, 3):
+        sys.exit(f"rank failed (exit {p.returncode}):\n{p.stderr[-3000:]}")
+    doc = json.loads((run / "run.json").read_text())
+    return {"wall": wall, "iterations": doc["iterations"], "iterate": doc["timings"]["iterate_seconds"],
+            "per_iter": doc["timings"]["seconds_per_iteration"], "driver_rss": doc["peak_memory_bytes"],
+            "bound": doc["error_bound"], "converged": doc["converged"]}
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--store", default="/work/bench-data/s22")
+    ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--tol", type=float, default=1e-9)
+    ap.add_argument("--methods", default="power,gauss-seidel")
+    ap.add_argument("--out", default="/tmp/bench-dask")
+    a = ap.parse_args()
+    import distributed
+
+    from shardrank.store.urls import open_store
+
+    reader = open_store(a.store)
+    print(f"store {a.store}: {reader.n_nodes:,} nodes, {reader.n_edges:,} edges, {reader.n_blocks} blocks "
+          f"of {reader.manifest.block_nodes:,} nodes", flush=True)
+    out = Path(a.out)
+    out.mkdir(parents=True, exist_ok=True)
+    t0 = time.monotonic()
+    cluster = distributed.LocalCluster(n_workers=a.workers, threads_per_worker=1, processes=True,
+                                       dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR)
+    client = distributed.Client(cluster, set_as_default=False)
+    client.wait_for_workers(a.workers)
+    print(f"LocalCluster: {a.workers} worker processes x 1 thread, started in {time.monotonic() - t0:.1f} s",
+          flush=True)
+    rows = []
+    try:
+        for method in a.methods.split(","):
+            loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
+            client.restart()
+            dk = _rank(a.store, out / f"dask-{method}", method, a.tol,
+                       ["--engine", "dask", "--scheduler", cluster.scheduler_address])
+            dk["worker_rss"] = max(client.run(_worker_peak_rss).values())
+            x = np.load(out / f"local-{method}" / "scores.npy")
+            y = np.load(out / f"dask-{method}" / "scores.npy")
+            dk["bitwise"] = bool(np.array_equal(x, y))
+            dk["max_diff"] = float(np.abs(x - y).max())
+            rows += [("local", method, loc), (f"dask x{a.workers}", method, dk)]
+            for name, _, r in rows[-2:]:
+                print(json.dumps({"engine": name, "method": method, **r}), flush=True)
+    finally:
+        client.close()
+        cluster.close()
+    print()
+    print("| engine | method | iterations | iterate s | s / iteration | vs local | driver peak MiB "
+          "| worker peak MiB | bitwise equal |")
+    print("|---|---|---:|---:|---:|---:|---:|---:|---|")
+    base = {m: r for n, m, r in rows if n == "local"}
+    for name, method, r in rows:
+        ratio = r["iterate"] / base[method]["iterate"]
+        wr = f"{r['worker_rss'] / 2**20:,.0f}" if "worker_rss" in r else "-"
+        eq = ("yes" if r["bitwise"] else f"no ({r['max_diff']:.1e})") if "bitwise" in r else "-"
+        print(f"| {name} | {method} | {r['iterations']} | {r['iterate']:.1f} | {r['per_iter']:.3f} | "
+              f"{ratio:.2f}x | {r['driver_rss'] / 2**20:,.0f} | {wr} | {eq} |")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
