@@ -36,19 +36,43 @@ def _worker_peak_rss() -> int:
 def _rank(store: str, run: Path, method: str, tol: float, extra: list[str]) -> dict[str, Any]:
     shutil.rmtree(run, ignore_errors=True)
     t0 = time.monotonic()
-    p = subprocess.run([CLI, "rank", store, "--out", str(run), "--method", method, "--tol", str(tol),
-                        "--log-format", "json", *extra], capture_output=True, text=True)
+    p = subprocess.run(
+        [
+            CLI,
+            "rank",
+            store,
+            "--out",
+            str(run),
+            "--method",
+            method,
+            "--tol",
+            str(tol),
+            "--log-format",
+            "json",
+            *extra,
+        ],
+        capture_output=True,
+        text=True,
+    )
     wall = time.monotonic() - t0
     if p.returncode not in (0, 3):
         sys.exit(f"rank failed (exit {p.returncode}):\n{p.stderr[-3000:]}")
     doc = json.loads((run / "run.json").read_text())
-    return {"wall": wall, "iterations": doc["iterations"], "iterate": doc["timings"]["iterate_seconds"],
-            "per_iter": doc["timings"]["seconds_per_iteration"], "driver_rss": doc["peak_memory_bytes"],
-            "bound": doc["error_bound"], "converged": doc["converged"]}
+    return {
+        "wall": wall,
+        "iterations": doc["iterations"],
+        "iterate": doc["timings"]["iterate_seconds"],
+        "per_iter": doc["timings"]["seconds_per_iteration"],
+        "driver_rss": doc["peak_memory_bytes"],
+        "bound": doc["error_bound"],
+        "converged": doc["converged"],
+    }
 
 
 def main() -> int:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     ap.add_argument("--store", default="/work/bench-data/s22")
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--tol", type=float, default=1e-9)
@@ -60,24 +84,40 @@ def main() -> int:
     from shardrank.store.urls import open_store
 
     reader = open_store(a.store)
-    print(f"store {a.store}: {reader.n_nodes:,} nodes, {reader.n_edges:,} edges, {reader.n_blocks} blocks "
-          f"of {reader.manifest.block_nodes:,} nodes", flush=True)
+    print(
+        f"store {a.store}: {reader.n_nodes:,} nodes, {reader.n_edges:,} edges, "
+        f"{reader.n_blocks} blocks of {reader.manifest.block_nodes:,} nodes",
+        flush=True,
+    )
     out = Path(a.out)
     out.mkdir(parents=True, exist_ok=True)
     t0 = time.monotonic()
-    cluster = distributed.LocalCluster(n_workers=a.workers, threads_per_worker=1, processes=True,
-                                       dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR)
+    cluster = distributed.LocalCluster(
+        n_workers=a.workers,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address="127.0.0.1:0",
+        silence_logs=logging.ERROR,
+    )
     client = distributed.Client(cluster, set_as_default=False)
     client.wait_for_workers(a.workers)
-    print(f"LocalCluster: {a.workers} worker processes x 1 thread, started in {time.monotonic() - t0:.1f} s",
-          flush=True)
+    print(
+        f"LocalCluster: {a.workers} worker processes x 1 thread, "
+        f"started in {time.monotonic() - t0:.1f} s",
+        flush=True,
+    )
     rows = []
     try:
         for method in a.methods.split(","):
             loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
             client.restart()
-            dk = _rank(a.store, out / f"dask-{method}", method, a.tol,
-                       ["--engine", "dask", "--scheduler", cluster.scheduler_address])
+            dk = _rank(
+                a.store,
+                out / f"dask-{method}",
+                method,
+                a.tol,
+                ["--engine", "dask", "--scheduler", cluster.scheduler_address],
+            )
             dk["worker_rss"] = max(client.run(_worker_peak_rss).values())
             x = np.load(out / f"local-{method}" / "scores.npy")
             y = np.load(out / f"dask-{method}" / "scores.npy")
@@ -90,16 +130,20 @@ def main() -> int:
         client.close()
         cluster.close()
     print()
-    print("| engine | method | iterations | iterate s | s / iteration | vs local | driver peak MiB "
-          "| worker peak MiB | bitwise equal |")
+    print(
+        "| engine | method | iterations | iterate s | s / iteration | vs local | driver peak MiB "
+        "| worker peak MiB | bitwise equal |"
+    )
     print("|---|---|---:|---:|---:|---:|---:|---:|---|")
     base = {m: r for n, m, r in rows if n == "local"}
     for name, method, r in rows:
         ratio = r["iterate"] / base[method]["iterate"]
         wr = f"{r['worker_rss'] / 2**20:,.0f}" if "worker_rss" in r else "-"
         eq = ("yes" if r["bitwise"] else f"no ({r['max_diff']:.1e})") if "bitwise" in r else "-"
-        print(f"| {name} | {method} | {r['iterations']} | {r['iterate']:.1f} | {r['per_iter']:.3f} | "
-              f"{ratio:.2f}x | {r['driver_rss'] / 2**20:,.0f} | {wr} | {eq} |")
+        print(
+            f"| {name} | {method} | {r['iterations']} | {r['iterate']:.1f} | {r['per_iter']:.3f} | "
+            f"{ratio:.2f}x | {r['driver_rss'] / 2**20:,.0f} | {wr} | {eq} |"
+        )
     return 0
 
 

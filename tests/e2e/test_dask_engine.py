@@ -46,8 +46,13 @@ def watchdog() -> Iterator[None]:
 @pytest.fixture(scope="module")
 def cluster() -> Iterator[Any]:
     faulthandler.dump_traceback_later(TEST_SECONDS, exit=True)
-    c = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                 dashboard_address="127.0.0.1:0", silence_logs=logging.CRITICAL)
+    c = distributed.LocalCluster(
+        n_workers=2,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address="127.0.0.1:0",
+        silence_logs=logging.CRITICAL,
+    )
     faulthandler.cancel_dump_traceback_later()
     try:
         yield c
@@ -82,9 +87,15 @@ def stores(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
     for kind in ("plain", "weighted"):
         f = _edges(tmp / kind / "edges.parquet", weighted=kind == "weighted")
         out[kind] = tmp / kind / "store"
-        shardrank.build_store([f], out[kind], BuildOptions(block_nodes=256, weight="w" if kind == "weighted" else None))
+        shardrank.build_store(
+            [f],
+            out[kind],
+            BuildOptions(block_nodes=256, weight="w" if kind == "weighted" else None),
+        )
     tele = tmp / "teleport.parquet"
-    pq.write_table(pa.table({"key": np.arange(0, 3000, 7), "weight": np.linspace(1.0, 5.0, 429)}), tele)
+    pq.write_table(
+        pa.table({"key": np.arange(0, 3000, 7), "weight": np.linspace(1.0, 5.0, 429)}), tele
+    )
     out["teleport"] = tele
     return out
 
@@ -100,19 +111,26 @@ def _local(store: Path | str, run: Path, **kw: Any) -> np.ndarray:
 
 @pytest.mark.parametrize("method", ["power", "gauss-seidel"])
 @pytest.mark.parametrize("kind", ["plain", "weighted"])
-def test_equals_local_engine_bit_for_bit(tmp_path: Path, client: Any, stores: dict[str, Path],
-                                         method: str, kind: str) -> None:
+def test_equals_local_engine_bit_for_bit(
+    tmp_path: Path, client: Any, stores: dict[str, Path], method: str, kind: str
+) -> None:
     # 10 steps (the last a power step) check the same as a converged run, in less time
     kw: dict[str, Any] = {"method": method, "tol": 1e-12, "max_iter": 10}
     if kind == "weighted":
         kw.update(teleport=str(stores["teleport"]), dead_ends="uniform")
     ref = _local(stores[kind], tmp_path / "local", **kw)
-    res = shardrank.rank(stores[kind], tmp_path / "dask", RankOptions(engine="dask", scheduler=client.scheduler.address, **kw))
+    res = shardrank.rank(
+        stores[kind],
+        tmp_path / "dask",
+        RankOptions(engine="dask", scheduler=client.scheduler.address, **kw),
+    )
     assert res.iterations == 10
     got = _scores(tmp_path / "dask")
     # same kernels, same inputs, partial sums added in the same order: the same bytes
     assert np.array_equal(got, ref), np.abs(got - ref).max()
-    a, b = (json.loads((tmp_path / r / "run.json").read_text())["history"] for r in ("local", "dask"))
+    a, b = (
+        json.loads((tmp_path / r / "run.json").read_text())["history"] for r in ("local", "dask")
+    )
     assert a == b  # every step's residual too
     assert not (tmp_path / "dask" / "exchange").exists()  # the engine cleans up after itself
 
@@ -126,15 +144,26 @@ def test_agrees_with_networkx(tmp_path: Path, client: Any, stores: dict[str, Pat
     g.add_edges_from(zip(t.column("src").to_pylist(), t.column("dst").to_pylist(), strict=True))
     # damping 0.5 converges in a few dozen steps (the test stays short)
     want = nx.pagerank(g, alpha=0.5, tol=1e-14, max_iter=1000)
-    res = shardrank.rank(stores["plain"], tmp_path / "r", RankOptions(
-        engine="dask", method="power", damping=0.5, tol=1e-11, scheduler=client.scheduler.address))
+    res = shardrank.rank(
+        stores["plain"],
+        tmp_path / "r",
+        RankOptions(
+            engine="dask",
+            method="power",
+            damping=0.5,
+            tol=1e-11,
+            scheduler=client.scheduler.address,
+        ),
+    )
     assert res.converged
     out = pq.read_table(tmp_path / "r" / "scores.parquet")
     got = dict(zip(out.column("key").to_pylist(), out.column("score").to_pylist(), strict=True))
     assert sum(abs(got[k] - want[k]) for k in want) < 1e-9
 
 
-def test_store_and_exchange_at_fsspec_urls(tmp_path: Path, client: Any, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_store_and_exchange_at_fsspec_urls(
+    tmp_path: Path, client: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
     """`build --out URL` uploads; `rank URL` reads through a verified mirror (driver) and each
     worker's own mirror. simplecache:: over a local directory is a real fsspec filesystem that
     cannot be memory-mapped in place, standing in for object storage (s3fs is not installed)."""
@@ -147,8 +176,26 @@ def test_store_and_exchange_at_fsspec_urls(tmp_path: Path, client: Any, monkeypa
     shardrank.build_store([edges], tmp_path / "local.store", BuildOptions(block_nodes=256))
     ref = _local(tmp_path / "local.store", tmp_path / "ref", max_iter=8)
     xch = f"simplecache::file://{tmp_path}/shared/exchange"
-    assert main(["rank", url, "--out", str(tmp_path / "run"), "--engine", "dask", "--scheduler",
-                 client.scheduler.address, "--exchange", xch, "--max-iter", "8", "-q"]) == 3  # 3: not converged
+    assert (
+        main(
+            [
+                "rank",
+                url,
+                "--out",
+                str(tmp_path / "run"),
+                "--engine",
+                "dask",
+                "--scheduler",
+                client.scheduler.address,
+                "--exchange",
+                xch,
+                "--max-iter",
+                "8",
+                "-q",
+            ]
+        )
+        == 3
+    )  # 3: not converged
     assert np.array_equal(_scores(tmp_path / "run"), ref)
     assert json.loads((tmp_path / "run" / "run.json").read_text())["store"]["path"] == url
     assert os.listdir(tmp_path / "shared" / "exchange") == []  # the run's exchange is gone
@@ -164,7 +211,9 @@ class _KillAWorker(Reporter):
         self.client, self.at = client, at
         self.killed: list[int] = []
 
-    def progress(self, phase: str, done: float, total: float | None, unit: str = "", **fields: Any) -> None:
+    def progress(
+        self, phase: str, done: float, total: float | None, unit: str = "", **fields: Any
+    ) -> None:
         if phase == f"iteration {self.at}" and done == 1 and not self.killed:
             pids = self.client.run(os.getpid)
             victim = pids[sorted(pids)[0]]
@@ -173,12 +222,17 @@ class _KillAWorker(Reporter):
 
 
 @pytest.mark.parametrize("method", ["power", "gauss-seidel"])
-def test_worker_killed_mid_iteration(tmp_path: Path, client: Any, stores: dict[str, Path], method: str) -> None:
+def test_worker_killed_mid_iteration(
+    tmp_path: Path, client: Any, stores: dict[str, Path], method: str
+) -> None:
     ref = _local(stores["plain"], tmp_path / "local", method=method, max_iter=8)
     rep = _KillAWorker(client, at=3)
-    res = shardrank.rank(stores["plain"], tmp_path / "dask",
-                         RankOptions(engine="dask", method=method, max_iter=8, scheduler=client.scheduler.address),
-                         reporter=rep)
+    res = shardrank.rank(
+        stores["plain"],
+        tmp_path / "dask",
+        RankOptions(engine="dask", method=method, max_iter=8, scheduler=client.scheduler.address),
+        reporter=rep,
+    )
     assert rep.killed and res.iterations == 8
     assert np.array_equal(_scores(tmp_path / "dask"), ref)
     client.wait_for_workers(2, timeout=60)  # the nanny restarted it
@@ -189,14 +243,32 @@ def test_resume_after_driver_sigkill(tmp_path: Path, client: Any, stores: dict[s
     opts = ["--method", "power", "--max-iter", "30"]  # stops at 30, not converged (exit 3)
     ref = _local(stores["plain"], tmp_path / "local", method="power", max_iter=30)
     run = tmp_path / "run"
-    p = subprocess.Popen([CLI, "rank", str(stores["plain"]), "--out", str(run), "--engine", "dask",
-                          "--scheduler", client.scheduler.address, "--checkpoint-every", "2", "-q", *opts],
-                         stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    p = subprocess.Popen(
+        [
+            CLI,
+            "rank",
+            str(stores["plain"]),
+            "--out",
+            str(run),
+            "--engine",
+            "dask",
+            "--scheduler",
+            client.scheduler.address,
+            "--checkpoint-every",
+            "2",
+            "-q",
+            *opts,
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     marker = run / "checkpoints" / "iter-000004" / "state.json"
     deadline = time.monotonic() + 90
     try:
         while not marker.exists():
-            assert p.poll() is None, f"the driver ended (exit {p.returncode}) first: {p.stderr.read() if p.stderr else ''}"
+            err = p.stderr.read() if p.stderr and p.poll() is not None else ""
+            assert p.poll() is None, f"the driver ended (exit {p.returncode}) first: {err}"
             assert time.monotonic() < deadline, "no checkpoint 4 within 90 s"
             time.sleep(0.005)
         p.send_signal(signal.SIGKILL)
@@ -215,29 +287,72 @@ def test_resume_after_driver_sigkill(tmp_path: Path, client: Any, stores: dict[s
 def test_own_local_cluster_from_the_cli(tmp_path: Path, stores: dict[str, Path]) -> None:
     """--workers N without --scheduler starts (and closes) N local worker processes."""
     ref = _local(stores["plain"], tmp_path / "local", method="power", max_iter=5)
-    assert main(["rank", str(stores["plain"]), "--out", str(tmp_path / "run"), "--engine", "dask",
-                 "--workers", "2", "--method", "power", "--max-iter", "5", "-q"]) == 3
+    assert (
+        main(
+            [
+                "rank",
+                str(stores["plain"]),
+                "--out",
+                str(tmp_path / "run"),
+                "--engine",
+                "dask",
+                "--workers",
+                "2",
+                "--method",
+                "power",
+                "--max-iter",
+                "5",
+                "-q",
+            ]
+        )
+        == 3
+    )
     assert np.array_equal(_scores(tmp_path / "run"), ref)
 
 
-def test_unreachable_scheduler_is_exit_2(tmp_path: Path, stores: dict[str, Path], capsys: pytest.CaptureFixture[str],
-                                         monkeypatch: pytest.MonkeyPatch) -> None:
+def test_unreachable_scheduler_is_exit_2(
+    tmp_path: Path,
+    stores: dict[str, Path],
+    capsys: pytest.CaptureFixture[str],
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
     from shardrank.solve import dask_engine
 
     monkeypatch.setattr(dask_engine, "CONNECT_SECONDS", 1.0)
-    assert main(["rank", str(stores["plain"]), "--out", str(tmp_path / "run"), "--engine", "dask",
-                 "--scheduler", "tcp://127.0.0.1:9", "-q"]) == 2
+    assert (
+        main(
+            [
+                "rank",
+                str(stores["plain"]),
+                "--out",
+                str(tmp_path / "run"),
+                "--engine",
+                "dask",
+                "--scheduler",
+                "tcp://127.0.0.1:9",
+                "-q",
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err
     assert "no Dask scheduler answers" in err and "hint:" in err
 
 
-def test_dask_options_need_the_dask_engine(tmp_path: Path, stores: dict[str, Path], capsys: pytest.CaptureFixture[str]) -> None:
-    assert main(["rank", str(stores["plain"]), "--out", str(tmp_path / "run"), "--workers", "2", "-q"]) == 2
+def test_dask_options_need_the_dask_engine(
+    tmp_path: Path, stores: dict[str, Path], capsys: pytest.CaptureFixture[str]
+) -> None:
+    assert (
+        main(["rank", str(stores["plain"]), "--out", str(tmp_path / "run"), "--workers", "2", "-q"])
+        == 2
+    )
     assert "--engine dask" in capsys.readouterr().err
     assert not (tmp_path / "run").exists()
 
 
-def test_missing_dask_says_what_to_install(tmp_path: Path, stores: dict[str, Path], monkeypatch: pytest.MonkeyPatch) -> None:
+def test_missing_dask_says_what_to_install(
+    tmp_path: Path, stores: dict[str, Path], monkeypatch: pytest.MonkeyPatch
+) -> None:
     from shardrank.solve.engine import ENGINES
     from shardrank.solve.problem import Problem, Teleport
 
@@ -245,5 +360,10 @@ def test_missing_dask_says_what_to_install(tmp_path: Path, stores: dict[str, Pat
     monkeypatch.delitem(sys.modules, "shardrank.solve.dask_engine", raising=False)
     reader = shardrank.open_store(stores["plain"])
     with pytest.raises(BadInputError) as e:
-        ENGINES["dask"](reader, Problem(0.85, Teleport(reader.n_nodes), "teleport"), RankOptions(engine="dask"), tmp_path)
+        ENGINES["dask"](
+            reader,
+            Problem(0.85, Teleport(reader.n_nodes), "teleport"),
+            RankOptions(engine="dask"),
+            tmp_path,
+        )
     assert "shardrank[dask]" in (e.value.hint or "")

@@ -81,22 +81,30 @@ def _connect(options: RankOptions) -> tuple[Client, LocalCluster | None]:
         try:
             client = Client(options.scheduler, timeout=CONNECT_SECONDS, set_as_default=False)
         except (OSError, TimeoutError) as e:
-            raise BadInputError(f"--scheduler {options.scheduler}: no Dask scheduler answers ({e})",
-                                hint="start one with `dask scheduler` (and `dask worker ADDRESS` on each "
-                                     "machine), or omit --scheduler to use local worker processes") from None
+            raise BadInputError(
+                f"--scheduler {options.scheduler}: no Dask scheduler answers ({e})",
+                hint="start one with `dask scheduler` (and `dask worker ADDRESS` on each "
+                "machine), or omit --scheduler to use local worker processes",
+            ) from None
         try:
             client.wait_for_workers(1, timeout=WORKERS_SECONDS)
         except TimeoutError:
             client.close()
-            raise BadInputError(f"--scheduler {options.scheduler}: no worker joined within "
-                                f"{WORKERS_SECONDS:.0f} s", hint="start workers with `dask worker "
-                                f"{options.scheduler} --nthreads 1`") from None
+            raise BadInputError(
+                f"--scheduler {options.scheduler}: no worker joined within {WORKERS_SECONDS:.0f} s",
+                hint=f"start workers with `dask worker {options.scheduler} --nthreads 1`",
+            ) from None
         return client, None
     n = options.workers or os.cpu_count() or 1
     # one thread per worker process: the kernels release the GIL, and numba's parallel
     # regions are not shared between threads of one process
-    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
-                           silence_logs=logging.ERROR)
+    cluster = LocalCluster(
+        n_workers=n,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address="127.0.0.1:0",
+        silence_logs=logging.ERROR,
+    )
     return Client(cluster, set_as_default=False), cluster
 
 
@@ -109,8 +117,15 @@ class DaskEngine:
 
     name = "dask"
 
-    def __init__(self, reader: StoreReader, problem: Problem, client: Client, exchange: urls.Location,
-                 threads: int = 0, cluster: LocalCluster | None = None) -> None:
+    def __init__(
+        self,
+        reader: StoreReader,
+        problem: Problem,
+        client: Client,
+        exchange: urls.Location,
+        threads: int = 0,
+        cluster: LocalCluster | None = None,
+    ) -> None:
         self.reader, self.problem, self.client, self.cluster = reader, problem, client, cluster
         self.threads = threads  # numba threads inside each task (0: see StepJob.threads)
         self.chunk = settings.ROW_CHUNK
@@ -129,7 +144,9 @@ class DaskEngine:
         self._teleport = [self._teleport_slice(b.first_node, b.n_nodes) for b in self.blocks]
 
     @classmethod
-    def from_options(cls, reader: StoreReader, problem: Problem, options: RankOptions, run_dir: Path) -> DaskEngine:
+    def from_options(
+        cls, reader: StoreReader, problem: Problem, options: RankOptions, run_dir: Path
+    ) -> DaskEngine:
         if options.exchange:
             # one subdirectory per run, so runs sharing an --exchange never clean up each other
             tag = hashlib.sha256(str(Path(run_dir).resolve()).encode()).hexdigest()[:12]
@@ -165,25 +182,51 @@ class DaskEngine:
         step_dir = self.root.child(f"step-{self.step:06d}")
         _write_vector(step_file(step_dir, "s"), self.s)
         for b in self.blocks:
-            _write_vector(step_file(step_dir, "r", b.index), r[b.first_node : b.first_node + b.n_nodes])
-        job = StepJob(store=self.store, fingerprint=self.reader.fingerprint, step_dir=step_dir.url,
-                      n_nodes=self.reader.n_nodes, damping=self.problem.damping, chunk=self.chunk,
-                      threads=self.threads, firsts=tuple(b.first_node for b in self.blocks))
+            _write_vector(
+                step_file(step_dir, "r", b.index), r[b.first_node : b.first_node + b.n_nodes]
+            )
+        job = StepJob(
+            store=self.store,
+            fingerprint=self.reader.fingerprint,
+            step_dir=step_dir.url,
+            n_nodes=self.reader.n_nodes,
+            damping=self.problem.damping,
+            chunk=self.chunk,
+            threads=self.threads,
+            firsts=tuple(b.first_node for b in self.blocks),
+        )
         return step_dir, job
 
     def _task(self, i: int, dead_mass: float) -> BlockTask:
         b = self.blocks[i]
         add_u, add_t = self.problem.constants(dead_mass)
         tele = self._teleport[i]
-        return BlockTask(i, b.first_node, b.n_nodes, add_u, add_t,
-                         None if tele is None else tele[0], None if tele is None else tele[1])
+        return BlockTask(
+            i,
+            b.first_node,
+            b.n_nodes,
+            add_u,
+            add_t,
+            None if tele is None else tele[0],
+            None if tele is None else tele[1],
+        )
 
-    def _submit(self, fn: Callable[..., Any], job: StepJob, task: BlockTask, workers: list[str]) -> Future:
+    def _submit(
+        self, fn: Callable[..., Any], job: StepJob, task: BlockTask, workers: list[str]
+    ) -> Future:
         # a preferred worker per block keeps each shard in one worker's page cache; the
         # preference is loose, so an idle or surviving worker takes the task when needed
         prefer = [workers[task.index % len(workers)]] if workers else None
-        return self.client.submit(fn, job, task, key=f"{fn.__name__}-{self.session}-{self.step:06d}-{task.index:06d}",
-                                  workers=prefer, allow_other_workers=True, retries=TASK_RETRIES, pure=False)
+        return self.client.submit(
+            fn,
+            job,
+            task,
+            key=f"{fn.__name__}-{self.session}-{self.step:06d}-{task.index:06d}",
+            workers=prefer,
+            allow_other_workers=True,
+            retries=TASK_RETRIES,
+            pure=False,
+        )
 
     def _workers(self) -> list[str]:
         return sorted(self.client.nthreads())
@@ -192,13 +235,17 @@ class DaskEngine:
         try:
             y, part = fut.result()
         except KilledWorker as e:
-            raise ShardrankError(f"dask: a task killed its worker repeatedly ({e})",
-                                 hint="give workers more memory (see docs/scale-out.md), then "
-                                      "`shardrank resume RUN` continues from the last checkpoint") from None
+            raise ShardrankError(
+                f"dask: a task killed its worker repeatedly ({e})",
+                hint="give workers more memory (see docs/scale-out.md), then "
+                "`shardrank resume RUN` continues from the last checkpoint",
+            ) from None
         except (FutureCancelledError, OSError) as e:
-            raise ShardrankError(f"dask: lost the cluster during step {self.step} ({e!r})",
-                                 hint="check the scheduler, then `shardrank resume RUN` continues from "
-                                      "the last checkpoint") from None
+            raise ShardrankError(
+                f"dask: lost the cluster during step {self.step} ({e!r})",
+                hint="check the scheduler, then `shardrank resume RUN` continues from "
+                "the last checkpoint",
+            ) from None
         return y, part
 
     # -- the two sweeps ----------------------------------------------------------------------
@@ -207,8 +254,10 @@ class DaskEngine:
         dead_mass = math.fsum(dead)
         step_dir, job = self._begin_step(r)
         workers = self._workers()
-        futures = [self._submit(power_block, job, self._task(i, dead_mass), workers)
-                   for i in range(len(self.blocks))]
+        futures = [
+            self._submit(power_block, job, self._task(i, dead_mass), workers)
+            for i in range(len(self.blocks))
+        ]
         index = {f.key: i for i, f in enumerate(futures)}
         res = [0.0] * len(self.blocks)
         for done, fut in enumerate(as_completed(futures, loop=self.client.loop)):
@@ -236,10 +285,13 @@ class DaskEngine:
             fut.release()
             self.r_next[b.first_node : b.first_node + b.n_nodes] = y
             res.append(math.fsum(part))
-            dead[i] = self._scale_block(self.r_next, i)  # block i's fresh scores feed the blocks after it
+            dead[i] = self._scale_block(
+                self.r_next, i
+            )  # block i's fresh scores feed the blocks after it
             if i + 1 < len(self.blocks):
-                _write_vector(step_file(step_dir, "fresh", i),
-                              self.s[b.first_node : b.first_node + b.n_nodes])
+                _write_vector(
+                    step_file(step_dir, "fresh", i), self.s[b.first_node : b.first_node + b.n_nodes]
+                )
             if on_block:
                 on_block(i, len(self.blocks))
         r[:] = self.r_next

@@ -83,9 +83,11 @@ def _reader(job: StepJob) -> StoreReader:
         if r is None:
             r = urls.open_store(job.store, cache=_cache_dir())
             if r.fingerprint != job.fingerprint:
-                raise DamagedDataError(f"{job.store}: the store this worker sees is not the one the driver "
-                                       "opened (fingerprints differ)",
-                                       hint="every worker must see the same store; was it rebuilt during the run?")
+                raise DamagedDataError(
+                    f"{job.store}: the store this worker sees is not the one the driver "
+                    "opened (fingerprints differ)",
+                    hint="every worker must see the same store; was it rebuilt during the run?",
+                )
             _READERS[key] = r
         return r
 
@@ -120,14 +122,18 @@ def _arrays(sh: Shard) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return np.asarray(sh.offsets), np.asarray(sh.sources), w
 
 
+def _cores() -> int:
+    return int(numba.config.NUMBA_NUM_THREADS)  # type: ignore[attr-defined]
+
+
 def _set_threads(n: int) -> None:
-    numba.set_num_threads(max(1, min(n, numba.config.NUMBA_NUM_THREADS)))
+    numba.set_num_threads(max(1, min(n, _cores())))
 
 
 def _default_threads(sweep: bool) -> int:
     # power steps run one task per worker thread at once: one kernel thread each; a sweep's
     # chain runs one task at a time on the whole cluster, so that task takes every core
-    return numba.config.NUMBA_NUM_THREADS if sweep else 1
+    return _cores() if sweep else 1
 
 
 def power_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
@@ -136,11 +142,25 @@ def power_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
     step = urls.parse_location(job.step_dir)
     offsets, sources, w = _arrays(_reader(job).shard(t.index))
     s = _vector(step_file(step, "s"))
-    r_block = np.array(_vector(step_file(step, "r", t.index)), dtype=np.float64)  # private, writable
+    r_block = np.array(
+        _vector(step_file(step, "r", t.index)), dtype=np.float64
+    )  # private, writable
     part = np.zeros(n_chunks(t.n_nodes, job.chunk))
     # first=0: the kernel indexes r_inout by first + row, and r_block holds only this block
-    gather_block(offsets, sources, w, s, 0, job.damping, t.add_uniform, t.add_teleport,
-                 _teleport_block(t), job.chunk, r_block, part)
+    gather_block(
+        offsets,
+        sources,
+        w,
+        s,
+        0,
+        job.damping,
+        t.add_uniform,
+        t.add_teleport,
+        _teleport_block(t),
+        job.chunk,
+        r_block,
+        part,
+    )
     return r_block, part
 
 
@@ -173,6 +193,19 @@ def sweep_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
     r_full = np.empty(job.n_nodes, dtype=np.float64)
     r_full[t.first : t.first + t.n_nodes] = _vector(step_file(step, "r", t.index))
     part = np.zeros(n_chunks(t.n_nodes, job.chunk))
-    gather_block_fresh(offsets, sources, w, s, w_out, t.first, job.damping, t.add_uniform,
-                       t.add_teleport, _teleport_block(t), job.chunk, r_full, part)
+    gather_block_fresh(
+        offsets,
+        sources,
+        w,
+        s,
+        w_out,
+        t.first,
+        job.damping,
+        t.add_uniform,
+        t.add_teleport,
+        _teleport_block(t),
+        job.chunk,
+        r_full,
+        part,
+    )
     return r_full[t.first : t.first + t.n_nodes].copy(), part

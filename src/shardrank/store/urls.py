@@ -78,8 +78,10 @@ def _fsspec() -> Any:
     try:
         import fsspec
     except ImportError:
-        raise BadInputError("URLs other than local paths need the package 'fsspec', which is not installed",
-                            hint="pip install 'shardrank[dask]'") from None
+        raise BadInputError(
+            "URLs other than local paths need the package 'fsspec', which is not installed",
+            hint="pip install 'shardrank[dask]'",
+        ) from None
     return fsspec
 
 
@@ -89,11 +91,14 @@ def filesystem(loc: Location) -> tuple[Any, str]:
     try:
         return fsspec.core.url_to_fs(loc.local if loc.local is not None else loc.url)
     except ImportError as e:
-        raise BadInputError(f"{loc}: {e}", hint="install the fsspec backend for this protocol "
-                            "(e.g. pip install s3fs for s3://)") from None
+        raise BadInputError(
+            f"{loc}: {e}",
+            hint="install the fsspec backend for this protocol (e.g. pip install s3fs for s3://)",
+        ) from None
     except ValueError as e:
-        raise BadInputError(f"{loc}: {e}", hint="use a local path or a URL fsspec knows "
-                            "(s3://, gs://, ...)") from None
+        raise BadInputError(
+            f"{loc}: {e}", hint="use a local path or a URL fsspec knows (s3://, gs://, ...)"
+        ) from None
 
 
 def read_bytes(loc: Location) -> bytes:
@@ -103,19 +108,6 @@ def read_bytes(loc: Location) -> bytes:
     fs, path = filesystem(loc)
     data: bytes = fs.cat_file(path)
     return data
-
-
-def write_bytes(loc: Location, data: bytes) -> None:
-    """Publish ``data`` at ``loc`` whole: a local file through a renamed sibling; an object at once."""
-    if loc.local is not None:
-        loc.local.parent.mkdir(parents=True, exist_ok=True)
-        write_bytes_atomic(loc.local, data)
-        return
-    fs, path = filesystem(loc)
-    fs.makedirs(path.rsplit("/", 1)[0], exist_ok=True)  # a no-op on object stores
-    tmp = f"{path}.partial"
-    fs.pipe_file(tmp, data)
-    fs.mv(tmp, path)
 
 
 def exists(loc: Location) -> bool:
@@ -145,7 +137,10 @@ def describe(where: str | os.PathLike[str]) -> str:
 def check_writable(dest: Location, overwrite: bool) -> None:
     """Refuse early when a store is already at ``dest`` and ``overwrite`` is off."""
     if not overwrite and exists(dest.child(layout.MANIFEST)):
-        raise BadInputError(f"{dest} already holds a store", hint="pass --overwrite to replace it, or pick another --out")
+        raise BadInputError(
+            f"{dest} already holds a store",
+            hint="pass --overwrite to replace it, or pick another --out",
+        )
 
 
 def upload_store(src: Path, dest: Location, overwrite: bool) -> None:
@@ -170,8 +165,10 @@ def upload_store(src: Path, dest: Location, overwrite: bool) -> None:
             shutil.copyfileobj(f_in, f_out, _COPY_CHUNK)
         size = (src / name).stat().st_size
         if int(fs.info(target)["size"]) != size:
-            raise DamagedDataError(f"{dest}/{name}: uploaded size differs from the local {size} bytes",
-                                   hint="check the storage and upload again with --overwrite")
+            raise DamagedDataError(
+                f"{dest}/{name}: uploaded size differs from the local {size} bytes",
+                hint="check the storage and upload again with --overwrite",
+            )
 
 
 # -- reading a store at a URL ------------------------------------------------------------------
@@ -195,19 +192,23 @@ def fetch_file(src: Location, dest: Path, info: FileInfo) -> Path:
                 f_out.write(chunk)
                 n += len(chunk)
         if n != info.bytes or h.hexdigest() != info.sha256:
-            raise DamagedDataError(f"{src}: {n} bytes with a different checksum than the manifest lists",
-                                   hint="the store at this URL is damaged or was replaced; rebuild or re-upload it")
+            raise DamagedDataError(
+                f"{src}: {n} bytes with a different checksum than the manifest lists",
+                hint="the store at this URL is damaged or was replaced; rebuild or re-upload it",
+            )
         os.replace(tmp, dest)
     except FileNotFoundError:
-        raise DamagedDataError(f"{src}: missing (listed in the manifest)",
-                               hint="the store at this URL is incomplete; rebuild or re-upload it") from None
+        raise DamagedDataError(
+            f"{src}: missing (listed in the manifest)",
+            hint="the store at this URL is incomplete; rebuild or re-upload it",
+        ) from None
     finally:
         tmp.unlink(missing_ok=True)
     return dest
 
 
 def cache_root() -> Path:
-    """Where a driver mirrors stores at URLs (``$SHARDRANK_CACHE_DIR`` or ~/.cache/shardrank/stores)."""
+    """Where a driver mirrors stores at URLs: $SHARDRANK_CACHE_DIR or ~/.cache/shardrank/stores."""
     return Path(os.environ.get(CACHE_ENV) or DEFAULT_CACHE).expanduser()
 
 
@@ -225,21 +226,26 @@ class StoreMirror(StoreReader):
 
     @classmethod
     def open_url(cls, loc: Location, cache: Path | None = None) -> StoreMirror:
-        """Read and validate the manifest at ``loc``; mirror into ``cache`` (default :func:`cache_root`)."""
+        """Read and check the manifest at ``loc``; mirror into ``cache`` (or :func:`cache_root`)."""
         mloc = loc.child(layout.MANIFEST)
         try:
             raw = read_bytes(mloc)
         except FileNotFoundError:
             if not exists(loc):
-                raise BadInputError(f"{loc}: no such store", hint="build one with `shardrank build`") from None
-            raise DamagedDataError(f"{loc}: not a shardrank store (no {layout.MANIFEST}); an interrupted "
-                                   "upload never leaves a manifest",
-                                   hint="build it again with `shardrank build ... --out URL --overwrite`") from None
+                raise BadInputError(
+                    f"{loc}: no such store", hint="build one with `shardrank build`"
+                ) from None
+            raise DamagedDataError(
+                f"{loc}: not a shardrank store (no {layout.MANIFEST}); an interrupted "
+                "upload never leaves a manifest",
+                hint="build it again with `shardrank build ... --out URL --overwrite`",
+            ) from None
         try:
             d = json.loads(raw)
         except (ValueError, UnicodeDecodeError) as e:
-            raise DamagedDataError(f"{mloc}: manifest is not valid JSON ({e})",
-                                   hint="rebuild or re-upload the store") from None
+            raise DamagedDataError(
+                f"{mloc}: manifest is not valid JSON ({e})", hint="rebuild or re-upload the store"
+            ) from None
         m = parse_manifest(d, mloc)  # type: ignore[arg-type]  # only printed in messages
         path = (cache or cache_root()) / m.fingerprint[:32]
         path.mkdir(parents=True, exist_ok=True)
@@ -251,27 +257,35 @@ class StoreMirror(StoreReader):
         """The local copy of the store's file ``name``, fetched and verified if missing."""
         info = self.manifest.files.get(name)
         if info is None:
-            raise DamagedDataError(f"{self.location}: the manifest lists no {name}",
-                                   hint="the store is damaged; rebuild or re-upload it")
+            raise DamagedDataError(
+                f"{self.location}: the manifest lists no {name}",
+                hint="the store is damaged; rebuild or re-upload it",
+            )
         return fetch_file(self.location.child(name), self.path / name, info)
 
     def check_sizes(self) -> None:
         """Every listed file is at the URL with its listed size (one listing, no download)."""
         fs, root = filesystem(self.location)
-        found = {str(k)[len(root):].lstrip("/"): v for k, v in fs.find(root, detail=True).items()}
+        found = {str(k)[len(root) :].lstrip("/"): v for k, v in fs.find(root, detail=True).items()}
         for name, info in self.manifest.files.items():
             got = found.get(name)
             if got is None:
-                raise DamagedDataError(f"{self.location}/{name}: missing (listed in the manifest)",
-                                       hint="the store at this URL is incomplete; rebuild or re-upload it")
+                raise DamagedDataError(
+                    f"{self.location}/{name}: missing (listed in the manifest)",
+                    hint="the store at this URL is incomplete; rebuild or re-upload it",
+                )
             if int(got["size"]) != info.bytes:
-                raise DamagedDataError(f"{self.location}/{name}: size {got['size']} bytes, manifest says "
-                                       f"{info.bytes}", hint="rebuild or re-upload the store")
+                raise DamagedDataError(
+                    f"{self.location}/{name}: size {got['size']} bytes, manifest says {info.bytes}",
+                    hint="rebuild or re-upload the store",
+                )
 
     def verify_checksums(self, progress: Any = None) -> None:
         """Verify the node-sized files and every mirrored shard file; shards not yet mirrored
         are verified when they are fetched (that is what keeps a driver from downloading them)."""
-        names = [n for n in sorted(self.manifest.files) if n in HEAD_FILES or (self.path / n).is_file()]
+        names = [
+            n for n in sorted(self.manifest.files) if n in HEAD_FILES or (self.path / n).is_file()
+        ]
         names = [n for n in names if n != layout.MANIFEST]
         for i, name in enumerate(names):
             if progress:
