@@ -40,6 +40,7 @@ def graphs(draw: Any, keys: st.SearchStrategy[Any]) -> dict[str, Any]:
         "src": [s for s, _ in edges], "dst": [d for _, d in edges], "weights": weights, "extra": extra,
         "self_loops": draw(st.sampled_from(["keep", "drop"])),
         "block_nodes": draw(st.sampled_from([1, 2, 3, 7, 64, shardrank.settings.BLOCK_NODES])),
+        "id_width": draw(st.sampled_from(["auto", 16, 32, 64])),
     }
 
 
@@ -59,7 +60,7 @@ def _check(g: dict[str, Any], key_type: pa.DataType) -> None:
         out = Path(d) / "store"
         m = shardrank.build_store([f], out, BuildOptions(
             weight="w" if w is not None else None, self_loops=g["self_loops"], block_nodes=g["block_nodes"],
-            nodes=nodes))
+            nodes=nodes, id_width=g["id_width"]))
         assert_store_matches(out, src, dst, w, extra, g["self_loops"])
         keys, ref = reference_csr(src, dst, w, extra, g["self_loops"])
         kept_rows = len(src) - (loops if g["self_loops"] == "drop" else 0)
@@ -71,6 +72,7 @@ def _check(g: dict[str, Any], key_type: pa.DataType) -> None:
         assert m.counts["self_loop_rows_dropped"] == (loops if g["self_loops"] == "drop" else 0)
         assert m.counts["dead_ends"] == int(np.count_nonzero(out_deg == 0))
         assert m.counts["no_in_links"] == int(np.count_nonzero(np.diff(ref.indptr) == 0))
+        assert m.source_dtype == {"auto": "<u4", 16: "<u2", 32: "<u4", 64: "<u8"}[g["id_width"]]
         r = shardrank.open_store(out, verify=True)
         info = shardrank.verify_store(r)
         assert info["blocks"] == -(-len(keys) // g["block_nodes"])
