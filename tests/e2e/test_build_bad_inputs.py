@@ -67,7 +67,9 @@ def test_truncated_parquet(out: Path, capsys: pytest.CaptureFixture[str]) -> Non
     _fails([str(FIX / "truncated.parquet")], out, capsys, "truncated.parquet", "Parquet")
 
 
-def test_truncated_parquet_among_good_files(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_truncated_parquet_among_good_files(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     d = tmp_path / "parts"
     d.mkdir()
     shutil.copy(FIX / "good.parquet", d / "part-0.parquet")
@@ -76,36 +78,76 @@ def test_truncated_parquet_among_good_files(tmp_path: Path, out: Path, capsys: p
 
 
 def test_text_with_a_parquet_name(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "text_named.parquet")], out, capsys, "text_named.parquet", "not a Parquet file")
+    _fails(
+        [str(FIX / "text_named.parquet")], out, capsys, "text_named.parquet", "not a Parquet file"
+    )
 
 
-def test_missing_column_lists_the_columns_found(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    err = _fails([str(FIX / "other_columns.parquet"), "--dst", "dst"], out, capsys,
-                 "other_columns.parquet", "'dst'", "found: from_id, to_id, n", "--dst")
+def test_missing_column_lists_the_columns_found(
+    out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    err = _fails(
+        [str(FIX / "other_columns.parquet"), "--dst", "dst"],
+        out,
+        capsys,
+        "other_columns.parquet",
+        "'dst'",
+        "found: from_id, to_id, n",
+        "--dst",
+    )
     assert "pass --dst" in err
 
 
 def test_missing_weight_column(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "good.parquet"), "--weight", "w"], out, capsys, "good.parquet", "'w'", "found: src, dst")
+    _fails(
+        [str(FIX / "good.parquet"), "--weight", "w"],
+        out,
+        capsys,
+        "good.parquet",
+        "'w'",
+        "found: src, dst",
+    )
 
 
 def test_null_keys_are_counted(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "null_keys.parquet")], out, capsys, "null_keys.parquet", "3 of 5 rows", "--drop-nulls")
+    _fails(
+        [str(FIX / "null_keys.parquet")],
+        out,
+        capsys,
+        "null_keys.parquet",
+        "3 of 5 rows",
+        "--drop-nulls",
+    )
 
 
 def test_drop_nulls_skips_and_reports_them(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    assert main(["build", str(FIX / "null_keys.parquet"), "--drop-nulls", "--out", str(out), "-q"]) == 0
+    assert (
+        main(["build", str(FIX / "null_keys.parquet"), "--drop-nulls", "--out", str(out), "-q"])
+        == 0
+    )
     assert main(["inspect", str(out), "--json"]) == 0
     facts = json.loads(capsys.readouterr().out)
     # rows 1->2 and 5->1 survive: nodes 1, 2, 5
-    assert (facts["rows_read"], facts["rows_dropped_null"], facts["edges"], facts["nodes"]) == (5, 3, 2, 3)
+    assert (facts["rows_read"], facts["rows_dropped_null"], facts["edges"], facts["nodes"]) == (
+        5,
+        3,
+        2,
+        3,
+    )
     m = json.loads((out / "manifest.json").read_text())
     assert m["counts"]["rows_dropped_null"] == 3
 
 
 def test_mixed_key_types_in_one_file(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "mixed_key_types.parquet")], out, capsys, "mixed_key_types.parquet", "mixed types",
-           "'src'", "'dst'")
+    _fails(
+        [str(FIX / "mixed_key_types.parquet")],
+        out,
+        capsys,
+        "mixed_key_types.parquet",
+        "mixed types",
+        "'src'",
+        "'dst'",
+    )
 
 
 def test_mixed_key_types_in_a_csv(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -113,17 +155,32 @@ def test_mixed_key_types_in_a_csv(out: Path, capsys: pytest.CaptureFixture[str])
 
 
 def test_mixed_key_types_across_files(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "mixed_files")], out, capsys, "part-0.parquet", "part-1.parquet", "mixed types")
+    _fails(
+        [str(FIX / "mixed_files")], out, capsys, "part-0.parquet", "part-1.parquet", "mixed types"
+    )
 
 
-def test_int_parquet_with_text_csv(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_int_parquet_with_text_csv(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     (tmp_path / "more.csv").write_text("src,dst\na.example,b.example\n")
-    _fails([str(FIX / "good.parquet"), str(tmp_path / "more.csv")], out, capsys, "good.parquet", "mixed types")
+    _fails(
+        [str(FIX / "good.parquet"), str(tmp_path / "more.csv")],
+        out,
+        capsys,
+        "good.parquet",
+        "mixed types",
+    )
 
 
 def test_nodes_file_of_another_key_type(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "good.parquet"), "--nodes", str(FIX / "string_nodes.parquet")], out, capsys,
-           "string_nodes.parquet", "--nodes")
+    _fails(
+        [str(FIX / "good.parquet"), "--nodes", str(FIX / "string_nodes.parquet")],
+        out,
+        capsys,
+        "string_nodes.parquet",
+        "--nodes",
+    )
 
 
 @pytest.mark.parametrize("name", ["empty.parquet", "header_only.csv"])
@@ -135,38 +192,75 @@ def test_zero_byte_file(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
     _fails([str(FIX / "empty.csv")], out, capsys, "empty.csv", "empty")
 
 
-def test_only_null_rows_with_drop_nulls(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_only_null_rows_with_drop_nulls(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     f = tmp_path / "nulls.parquet"
     pq.write_table(pa.table({"src": pa.array([None, None], pa.int64()), "dst": [1, 2]}), f)
     _fails([str(f), "--drop-nulls"], out, capsys, "nulls.parquet", "null")
 
 
-@pytest.mark.parametrize(("name", "what"), [("negative", "zero or negative"), ("zero", "zero or negative"),
-                                            ("nan", "NaN"), ("infinite", "infinite")])
+@pytest.mark.parametrize(
+    ("name", "what"),
+    [
+        ("negative", "zero or negative"),
+        ("zero", "zero or negative"),
+        ("nan", "NaN"),
+        ("infinite", "infinite"),
+    ],
+)
 def test_bad_weights(name: str, what: str, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
     f = f"weight_{name}.parquet"
     _fails([str(FIX / f), "--weight", "w"], out, capsys, f, "'w'", f"1 {what}", "positive finite")
 
 
 def test_text_weights(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "text_weights.csv"), "--weight", "w"], out, capsys, "text_weights.csv", "'w'", "not a number")
+    _fails(
+        [str(FIX / "text_weights.csv"), "--weight", "w"],
+        out,
+        capsys,
+        "text_weights.csv",
+        "'w'",
+        "not a number",
+    )
 
 
 def test_float_key_column(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "float_keys.parquet")], out, capsys, "float_keys.parquet", "'src'", "DOUBLE", "BIGINT or VARCHAR")
+    _fails(
+        [str(FIX / "float_keys.parquet")],
+        out,
+        capsys,
+        "float_keys.parquet",
+        "'src'",
+        "DOUBLE",
+        "BIGINT or VARCHAR",
+    )
 
 
 def test_ambiguous_header(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    _fails([str(FIX / "ambiguous_header.csv")], out, capsys, "ambiguous_header.csv", "'pkg-a'", "--header")
+    _fails(
+        [str(FIX / "ambiguous_header.csv")],
+        out,
+        capsys,
+        "ambiguous_header.csv",
+        "'pkg-a'",
+        "--header",
+    )
 
 
-def test_text_files_that_disagree_on_a_header(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_text_files_that_disagree_on_a_header(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     (tmp_path / "a.csv").write_text("src,dst\n1,2\n")
     (tmp_path / "b.csv").write_text("2,3\n3,1\n")
-    _fails([str(tmp_path / "a.csv"), str(tmp_path / "b.csv")], out, capsys, "a.csv", "b.csv", "header")
+    _fails(
+        [str(tmp_path / "a.csv"), str(tmp_path / "b.csv")], out, capsys, "a.csv", "b.csv", "header"
+    )
 
 
-def test_more_nodes_than_the_id_width_allows(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_more_nodes_than_the_id_width_allows(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     n = 65_537  # one more than 16-bit ids can number
     f = tmp_path / "ring.parquet"
     pq.write_table(pa.table({"src": np.arange(n), "dst": (np.arange(n) + 1) % n}), f)
@@ -177,7 +271,9 @@ def test_more_nodes_than_the_id_width_allows(tmp_path: Path, out: Path, capsys: 
     assert main(["build", str(f2), "--id-width", "16", "--out", str(out), "-q"]) == 0
 
 
-def test_existing_store_without_overwrite(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_existing_store_without_overwrite(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     assert main(["build", str(FIX / "good.parquet"), "--out", str(out), "-q"]) == 0
     before = (out / "manifest.json").read_bytes()
     capsys.readouterr()
@@ -190,7 +286,9 @@ def test_existing_store_without_overwrite(tmp_path: Path, out: Path, capsys: pyt
     assert main(["verify", str(out), "-q"]) == 0
 
 
-def test_existing_plain_file_as_store(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_existing_plain_file_as_store(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     out.parent.mkdir(parents=True)
     out.write_text("my notes")
     assert main(["build", str(FIX / "good.parquet"), "--out", str(out), "-q"]) == 2
@@ -213,7 +311,10 @@ def test_bad_numbers(opt: list[str], out: Path, capsys: pytest.CaptureFixture[st
 
 def test_json_log_format_reports_the_error(out: Path, capsys: pytest.CaptureFixture[str]) -> None:
     capsys.readouterr()
-    assert main(["build", str(FIX / "float_keys.parquet"), "--out", str(out), "--log-format", "json"]) == 2
+    assert (
+        main(["build", str(FIX / "float_keys.parquet"), "--out", str(out), "--log-format", "json"])
+        == 2
+    )
     events = [json.loads(ln) for ln in capsys.readouterr().err.splitlines() if ln.strip()]
     last = events[-1]
     assert last["exit_code"] == 2 and "float_keys.parquet" in json.dumps(last)
@@ -225,16 +326,25 @@ def test_json_log_format_reports_the_error(out: Path, capsys: pytest.CaptureFixt
 
 def _run(args: list[str], cwd: Path) -> subprocess.CompletedProcess[str]:
     cmd = [sys.executable, "-c", "from shardrank.cli.main import entry; entry()", *args]
-    return subprocess.run(cmd, cwd=cwd, capture_output=True, text=True, timeout=120,
-                          env={**os.environ, "PYTHONUNBUFFERED": "1"})
+    return subprocess.run(
+        cmd,
+        cwd=cwd,
+        capture_output=True,
+        text=True,
+        timeout=120,
+        env={**os.environ, "PYTHONUNBUFFERED": "1"},
+    )
 
 
-@pytest.mark.parametrize(("name", "extra", "needle"), [
-    ("no-such-file.csv", [], "no such file"),
-    ("junk.bin", [], "neither Parquet nor"),
-    ("null_keys.parquet", [], "--drop-nulls"),
-    ("weight_nan.parquet", ["--weight", "w"], "NaN"),
-])
+@pytest.mark.parametrize(
+    ("name", "extra", "needle"),
+    [
+        ("no-such-file.csv", [], "no such file"),
+        ("junk.bin", [], "neither Parquet nor"),
+        ("null_keys.parquet", [], "--drop-nulls"),
+        ("weight_nan.parquet", ["--weight", "w"], "NaN"),
+    ],
+)
 def test_as_a_subprocess(name: str, extra: list[str], needle: str, out: Path) -> None:
     out.parent.mkdir(parents=True)
     p = _run(["build", str(FIX / name), *extra, "--out", str(out)], out.parent)
@@ -244,13 +354,24 @@ def test_as_a_subprocess(name: str, extra: list[str], needle: str, out: Path) ->
     _nothing_left(out)
 
 
-def test_too_little_memory_is_a_clear_error(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_too_little_memory_is_a_clear_error(
+    tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     # DuckDB raised OutOfMemoryException through the CLI as a traceback (exit 1) before
     rng = np.random.default_rng(5)
-    urls = pa.array([f"https://host{i % 97:03d}.example/s/{i:07d}/page.html" for i in range(200_000)])
+    urls = pa.array(
+        [f"https://host{i % 97:03d}.example/s/{i:07d}/page.html" for i in range(200_000)]
+    )
     f = tmp_path / "links.parquet"
-    pq.write_table(pa.table({"src": urls.take(rng.integers(0, 200_000, 600_000)),
-                             "dst": urls.take(rng.integers(0, 200_000, 600_000))}), f)
+    pq.write_table(
+        pa.table(
+            {
+                "src": urls.take(rng.integers(0, 200_000, 600_000)),
+                "dst": urls.take(rng.integers(0, 200_000, 600_000)),
+            }
+        ),
+        f,
+    )
     capsys.readouterr()
     rc = main(["build", str(f), "--memory", "1MB", "--threads", "2", "--out", str(out), "-q"])
     if rc == 0:  # a leaner build path may fit; then the store must be sound
@@ -262,12 +383,21 @@ def test_too_little_memory_is_a_clear_error(tmp_path: Path, out: Path, capsys: p
     _nothing_left(out)
 
 
-@pytest.mark.parametrize(("src", "dst", "w"), [
-    ([1, 1, 2], [2, 2, 1], [1e308, 1e308, 1.0]),  # merged duplicates: 2e308
-    ([1, 2, 2], [2, 1, 3], [1.0, 1e308, 1e308]),  # node 2's out-weight: 2e308
-])
-def test_weights_whose_sums_overflow(src: list[int], dst: list[int], w: list[float], tmp_path: Path, out: Path,
-                                     capsys: pytest.CaptureFixture[str]) -> None:
+@pytest.mark.parametrize(
+    ("src", "dst", "w"),
+    [
+        ([1, 1, 2], [2, 2, 1], [1e308, 1e308, 1.0]),  # merged duplicates: 2e308
+        ([1, 2, 2], [2, 1, 3], [1.0, 1e308, 1e308]),  # node 2's out-weight: 2e308
+    ],
+)
+def test_weights_whose_sums_overflow(
+    src: list[int],
+    dst: list[int],
+    w: list[float],
+    tmp_path: Path,
+    out: Path,
+    capsys: pytest.CaptureFixture[str],
+) -> None:
     # 2e308 overflows IEEE 754 double precision (largest finite value about 1.8e308): the store
     # would hold infinite weights that verify rejects
     f = tmp_path / "huge.parquet"

@@ -48,10 +48,29 @@ def big_input(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, int]:
 
 
 def _start(edges: Path, out: Path, *extra: str) -> subprocess.Popen[str]:
-    cmd = [sys.executable, "-c", "from shardrank.cli.main import entry; entry()", "build", str(edges),
-           "--out", str(out), "--block-nodes", "4096", "--threads", "1", "--log-format", "json", *extra]
-    return subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
-                            env={**os.environ, "PYTHONUNBUFFERED": "1"})
+    cmd = [
+        sys.executable,
+        "-c",
+        "from shardrank.cli.main import entry; entry()",
+        "build",
+        str(edges),
+        "--out",
+        str(out),
+        "--block-nodes",
+        "4096",
+        "--threads",
+        "1",
+        "--log-format",
+        "json",
+        *extra,
+    ]
+    return subprocess.Popen(
+        cmd,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+        env={**os.environ, "PYTHONUNBUFFERED": "1"},
+    )
 
 
 def _kill_at(p: subprocess.Popen[str], phase: str, delay: float) -> bool:
@@ -106,10 +125,15 @@ def test_killed_builds_leave_no_store_and_the_rerun_cleans_up(
         assert main(["inspect", str(out)]) != 0
         assert main(["verify", str(out)]) != 0
         # this build's sibling is there; the ones of earlier killed builds were cleaned at its start
-        assert [q.name for q in _partials(out)] == [f".{out.name}.partial-{p.pid}"], "the kill came too late?"
+        assert [q.name for q in _partials(out)] == [f".{out.name}.partial-{p.pid}"], (
+            "the kill came too late?"
+        )
     assert killed >= len(phases) - 1
     capsys.readouterr()
-    assert main(["build", str(edges), "--out", str(out), "--block-nodes", "4096", "-q", *PATHS[path]]) == 0
+    assert (
+        main(["build", str(edges), "--out", str(out), "--block-nodes", "4096", "-q", *PATHS[path]])
+        == 0
+    )
     assert _partials(out) == []  # the interrupted builds' siblings are gone
     assert main(["verify", str(out), "-q"]) == 0
     assert main(["inspect", str(out), "--json"]) == 0
@@ -117,7 +141,9 @@ def test_killed_builds_leave_no_store_and_the_rerun_cleans_up(
     assert facts["edges"] == n_edges and facts["weighted"] == (path == "sql")
 
 
-def test_kill_during_publish_leaves_nothing_or_a_sound_store(big_input: tuple[Path, int], tmp_path: Path) -> None:
+def test_kill_during_publish_leaves_nothing_or_a_sound_store(
+    big_input: tuple[Path, int], tmp_path: Path
+) -> None:
     edges, n_edges = big_input
     out = tmp_path / "crawl.store"
     p = _start(edges, out)
@@ -128,8 +154,9 @@ def test_kill_during_publish_leaves_nothing_or_a_sound_store(big_input: tuple[Pa
         assert main(["inspect", str(out)]) != 0
 
 
-def test_killed_overwrite_keeps_the_old_store(big_input: tuple[Path, int], tmp_path: Path,
-                                              capsys: pytest.CaptureFixture[str]) -> None:
+def test_killed_overwrite_keeps_the_old_store(
+    big_input: tuple[Path, int], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     edges, n_edges = big_input
     small = tmp_path / "small.csv"
     small.write_text("src,dst\n1,2\n2,3\n3,1\n")
@@ -141,9 +168,16 @@ def test_killed_overwrite_keeps_the_old_store(big_input: tuple[Path, int], tmp_p
         assert _kill_at(p, phase, 0.0)
         assert (out / "manifest.json").read_bytes() == before
         assert main(["verify", str(out), "-q"]) == 0
-    assert main(["build", str(edges), "--out", str(out), "--overwrite", "--block-nodes", "4096", "-q"]) == 0
+    assert (
+        main(["build", str(edges), "--out", str(out), "--overwrite", "--block-nodes", "4096", "-q"])
+        == 0
+    )
     assert _partials(out) == [] and main(["verify", str(out), "-q"]) == 0
     capsys.readouterr()
     assert main(["inspect", str(out), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["edges"] == n_edges
-    assert sorted(p.name for p in out.parent.iterdir()) == ["crawl.store", "probe.store", "small.csv"]
+    assert sorted(p.name for p in out.parent.iterdir()) == [
+        "crawl.store",
+        "probe.store",
+        "small.csv",
+    ]

@@ -31,7 +31,9 @@ N_KEYS, N_EDGES, CHUNK = 500_000, 5_000_000, 1_000_000
 def _write_table(path: Path) -> tuple[int, int]:
     """Write the edge table in chunks; return (raw bytes, distinct edges counted with numpy)."""
     rng = np.random.default_rng(17)
-    urls = pa.array([f"https://host{i % 997:03d}.example/section/{i:07d}/page.html" for i in range(N_KEYS)])
+    urls = pa.array(
+        [f"https://host{i % 997:03d}.example/section/{i:07d}/page.html" for i in range(N_KEYS)]
+    )
     schema = pa.schema([("src", pa.string()), ("dst", pa.string())])
     raw, pairs = 0, []
     with pq.ParquetWriter(path, schema, compression="zstd") as w:
@@ -51,9 +53,27 @@ def test_build_under_a_cap_below_the_raw_table(tmp_path: Path) -> None:
     raw, n_edges = _write_table(edges)
     assert raw > CAP_MIB * 2**20 * 1.5, raw  # the raw table is well above the cap
     out = tmp_path / "links.store"
-    cmd = [str(MEMCAP), f"{CAP_MIB}M", sys.executable, "-c", "from shardrank.cli.main import entry; entry()",
-           "build", str(edges), "--out", str(out), "--memory", "200MB", "-q"]
-    p = subprocess.run(cmd, capture_output=True, text=True, timeout=300, env={**os.environ, "PYTHONUNBUFFERED": "1"})
+    cmd = [
+        str(MEMCAP),
+        f"{CAP_MIB}M",
+        sys.executable,
+        "-c",
+        "from shardrank.cli.main import entry; entry()",
+        "build",
+        str(edges),
+        "--out",
+        str(out),
+        "--memory",
+        "200MB",
+        "-q",
+    ]
+    p = subprocess.run(
+        cmd,
+        capture_output=True,
+        text=True,
+        timeout=300,
+        env={**os.environ, "PYTHONUNBUFFERED": "1"},
+    )
     if p.returncode == 2 and "cannot create a memory cgroup" in p.stderr:
         pytest.skip(p.stderr.strip().splitlines()[-1])
     assert p.returncode == 0, p.stderr[-3000:]

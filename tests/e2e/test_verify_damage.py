@@ -8,7 +8,6 @@ exit 4 naming the damaged file; 0 when sound.
 from __future__ import annotations
 
 import shutil
-from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -40,7 +39,9 @@ def pristine(tmp_path_factory: pytest.TempPathFactory) -> Path:
     rng = np.random.default_rng(8)
     src = [f"https://h{i % 5}.example/{i}" for i in rng.integers(0, 40, 300)]
     dst = [f"https://h{i % 5}.example/{i}" for i in rng.integers(0, 40, 300)]
-    pq.write_table(pa.table({"src": src, "dst": dst, "w": rng.uniform(0.5, 2.0, 300)}), d / "e.parquet")
+    pq.write_table(
+        pa.table({"src": src, "dst": dst, "w": rng.uniform(0.5, 2.0, 300)}), d / "e.parquet"
+    )
     store = d / "store"
     shardrank.build_store([d / "e.parquet"], store, BuildOptions(weight="w", block_nodes=16))
     return store
@@ -83,14 +84,18 @@ def test_pristine_store_verifies(store: Path, capsys: pytest.CaptureFixture[str]
 
 @pytest.mark.parametrize("where", [0.0, 0.5, 0.999])
 @pytest.mark.parametrize("name", KINDS)
-def test_flipped_byte(store: Path, name: str, where: float, capsys: pytest.CaptureFixture[str]) -> None:
+def test_flipped_byte(
+    store: Path, name: str, where: float, capsys: pytest.CaptureFixture[str]
+) -> None:
     _flip(store / name, where)
     _verify_fails(store, name, capsys)
 
 
 @pytest.mark.parametrize("where", [0.0, 0.5, 0.999])
 @pytest.mark.parametrize("name", KINDS)
-def test_truncated_file(store: Path, name: str, where: float, capsys: pytest.CaptureFixture[str]) -> None:
+def test_truncated_file(
+    store: Path, name: str, where: float, capsys: pytest.CaptureFixture[str]
+) -> None:
     _truncate(store / name, where)
     _verify_fails(store, name, capsys)
 
@@ -140,7 +145,9 @@ def test_swapped_shards_are_caught(store: Path, capsys: pytest.CaptureFixture[st
     _verify_fails(store, "block-00000", capsys)
 
 
-def test_consistent_rewrite_is_caught_by_invariants(store: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_consistent_rewrite_is_caught_by_invariants(
+    store: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     # an attacker or a buggy tool rewrites a shard and fixes its size and checksum in the
     # manifest (and the manifest's own checksums): the structural invariants still object
     from shardrank.store.atomic import sha256_file
@@ -162,9 +169,12 @@ def test_consistent_rewrite_is_caught_by_invariants(store: Path, capsys: pytest.
     assert "increasing" in err
 
 
-@pytest.mark.parametrize("name", ["nodes.parquet", "shards/block-000002.weights.npy", "manifest.json"])
-def test_rank_refuses_a_damaged_store(store: Path, tmp_path: Path, name: str,
-                                      capsys: pytest.CaptureFixture[str]) -> None:
+@pytest.mark.parametrize(
+    "name", ["nodes.parquet", "shards/block-000002.weights.npy", "manifest.json"]
+)
+def test_rank_refuses_a_damaged_store(
+    store: Path, tmp_path: Path, name: str, capsys: pytest.CaptureFixture[str]
+) -> None:
     _flip(store / name, 0.5)
     run = tmp_path / "run"
     assert main(["rank", str(store), "--out", str(run), "-q"]) == 4
@@ -172,7 +182,9 @@ def test_rank_refuses_a_damaged_store(store: Path, tmp_path: Path, name: str,
     assert Path(name).name in err and "Traceback" not in err
 
 
-def test_directory_without_manifest_is_not_a_store(store: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_directory_without_manifest_is_not_a_store(
+    store: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     (store / "manifest.json").unlink()
     assert main(["inspect", str(store)]) == 4
     assert "not a shardrank store" in capsys.readouterr().err

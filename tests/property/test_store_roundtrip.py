@@ -34,10 +34,17 @@ def graphs(draw: Any, keys: st.SearchStrategy[Any]) -> dict[str, Any]:
     pick = st.sampled_from(pool)
     edges = draw(st.lists(st.tuples(pick, pick), min_size=1, max_size=40))
     weighted = draw(st.booleans())
-    weights = draw(st.lists(st.floats(0.001, 1000.0), min_size=len(edges), max_size=len(edges))) if weighted else None
+    weights = (
+        draw(st.lists(st.floats(0.001, 1000.0), min_size=len(edges), max_size=len(edges)))
+        if weighted
+        else None
+    )
     extra = draw(st.lists(keys, max_size=3))
     return {
-        "src": [s for s, _ in edges], "dst": [d for _, d in edges], "weights": weights, "extra": extra,
+        "src": [s for s, _ in edges],
+        "dst": [d for _, d in edges],
+        "weights": weights,
+        "extra": extra,
         "self_loops": draw(st.sampled_from(["keep", "drop"])),
         "block_nodes": draw(st.sampled_from([1, 2, 3, 7, 64, shardrank.settings.BLOCK_NODES])),
         "id_width": draw(st.sampled_from(["auto", 16, 32, 64])),
@@ -58,9 +65,17 @@ def _check(g: dict[str, Any], key_type: pa.DataType) -> None:
             pq.write_table(pa.table({"key": pa.array(extra, key_type)}), Path(d) / "n.parquet")
             nodes = [str(Path(d) / "n.parquet")]
         out = Path(d) / "store"
-        m = shardrank.build_store([f], out, BuildOptions(
-            weight="w" if w is not None else None, self_loops=g["self_loops"], block_nodes=g["block_nodes"],
-            nodes=nodes, id_width=g["id_width"]))
+        m = shardrank.build_store(
+            [f],
+            out,
+            BuildOptions(
+                weight="w" if w is not None else None,
+                self_loops=g["self_loops"],
+                block_nodes=g["block_nodes"],
+                nodes=nodes,
+                id_width=g["id_width"],
+            ),
+        )
         assert_store_matches(out, src, dst, w, extra, g["self_loops"])
         keys, ref = reference_csr(src, dst, w, extra, g["self_loops"])
         kept_rows = len(src) - (loops if g["self_loops"] == "drop" else 0)
@@ -77,7 +92,11 @@ def _check(g: dict[str, Any], key_type: pa.DataType) -> None:
         info = shardrank.verify_store(r)
         assert info["blocks"] == -(-len(keys) // g["block_nodes"])
         facts = shardrank.inspect_store(out)
-        assert (facts["nodes"], facts["edges"], facts["dead_ends"]) == (len(keys), ref.nnz, m.counts["dead_ends"])
+        assert (facts["nodes"], facts["edges"], facts["dead_ends"]) == (
+            len(keys),
+            ref.nnz,
+            m.counts["dead_ends"],
+        )
 
 
 @SETTINGS

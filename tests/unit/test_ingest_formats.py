@@ -32,7 +32,9 @@ STR_DST = [HOSTS[i] for i in RNG.integers(0, 30, 120)]
 
 
 def _text(src: list[Any], dst: list[Any], sep: str = ",", header: str | None = "src,dst") -> str:
-    lines = ([header.replace(",", sep)] if header else []) + [f"{s}{sep}{d}" for s, d in zip(src, dst, strict=True)]
+    lines = ([header.replace(",", sep)] if header else []) + [
+        f"{s}{sep}{d}" for s, d in zip(src, dst, strict=True)
+    ]
     return "\n".join(lines) + "\n"
 
 
@@ -91,7 +93,10 @@ def test_tsv(tmp_path: Path) -> None:
 
 def test_space_separated_edge_list(tmp_path: Path) -> None:
     f = tmp_path / "e.txt"
-    f.write_text("# invented: one edge a line, separated by a space\n" + _text(INT_SRC, INT_DST, sep=" ", header=None))
+    f.write_text(
+        "# invented: one edge a line, separated by a space\n"
+        + _text(INT_SRC, INT_DST, sep=" ", header=None)
+    )
     assert_store_matches(_build(tmp_path, [f]), INT_SRC, INT_DST)
 
 
@@ -115,15 +120,22 @@ def test_csv_gz(tmp_path: Path) -> None:
 def test_csv_zst(tmp_path: Path) -> None:
     plain = tmp_path / "e.csv"
     plain.write_text(_text(INT_SRC, INT_DST))
-    subprocess.run(["zstd", "-q", "--rm", str(plain), "-o", str(tmp_path / "e.csv.zst")], check=True)
+    subprocess.run(
+        ["zstd", "-q", "--rm", str(plain), "-o", str(tmp_path / "e.csv.zst")], check=True
+    )
     assert_store_matches(_build(tmp_path, [tmp_path / "e.csv.zst"]), INT_SRC, INT_DST)
 
 
-def _parquet_parts(d: Path, src: list[Any], dst: list[Any], n_parts: int, hive: bool = False) -> None:
+def _parquet_parts(
+    d: Path, src: list[Any], dst: list[Any], n_parts: int, hive: bool = False
+) -> None:
     for i in range(n_parts):
         sub = d / f"day=2026-01-0{i + 1}" if hive else d
         sub.mkdir(parents=True, exist_ok=True)
-        pq.write_table(pa.table({"src": src[i::n_parts], "dst": dst[i::n_parts]}), sub / f"part-{i:04d}.parquet")
+        pq.write_table(
+            pa.table({"src": src[i::n_parts], "dst": dst[i::n_parts]}),
+            sub / f"part-{i:04d}.parquet",
+        )
 
 
 def test_directory_of_parquet_parts(tmp_path: Path) -> None:
@@ -157,7 +169,9 @@ def test_csv_and_parquet_together(tmp_path: Path) -> None:
 
 def test_weighted_csv_and_named_columns(tmp_path: Path) -> None:
     f = tmp_path / "cites.csv"
-    rows = ["citing,cited,n"] + [f"{s},{d},{(s + d) % 5 + 1}" for s, d in zip(INT_SRC, INT_DST, strict=True)]
+    rows = ["citing,cited,n"] + [
+        f"{s},{d},{(s + d) % 5 + 1}" for s, d in zip(INT_SRC, INT_DST, strict=True)
+    ]
     f.write_text("\n".join(rows) + "\n")
     w = [(s + d) % 5 + 1 for s, d in zip(INT_SRC, INT_DST, strict=True)]
     out = _build(tmp_path, [f], src="citing", dst="cited", weight="n")
@@ -175,10 +189,24 @@ def test_parquet_parts_with_int32_and_int64_keys(tmp_path: Path) -> None:
     d = tmp_path / "edges"
     d.mkdir()
     half = len(INT_SRC) // 2
-    pq.write_table(pa.table({"src": pa.array(INT_SRC[:half], pa.int32()), "dst": pa.array(INT_DST[:half], pa.int32())}),
-                   d / "part-0.parquet")
-    pq.write_table(pa.table({"src": pa.array(INT_SRC[half:], pa.int64()), "dst": pa.array(INT_DST[half:], pa.int64())}),
-                   d / "part-1.parquet")
+    pq.write_table(
+        pa.table(
+            {
+                "src": pa.array(INT_SRC[:half], pa.int32()),
+                "dst": pa.array(INT_DST[:half], pa.int32()),
+            }
+        ),
+        d / "part-0.parquet",
+    )
+    pq.write_table(
+        pa.table(
+            {
+                "src": pa.array(INT_SRC[half:], pa.int64()),
+                "dst": pa.array(INT_DST[half:], pa.int64()),
+            }
+        ),
+        d / "part-1.parquet",
+    )
     assert_store_matches(_build(tmp_path, [d]), INT_SRC, INT_DST)
 
 

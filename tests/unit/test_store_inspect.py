@@ -1,4 +1,4 @@
-"""`shardrank inspect` shows what the issue lists, in text and JSON, with values checked independently.
+"""`shardrank inspect` shows what the issue lists (text and JSON), checked independently.
 
 Counts come from a small graph worked by hand; degree quantiles from numpy.quantile over degrees
 taken from a scipy.sparse CSR of the same edges; bytes on disk from walking the directory.
@@ -50,10 +50,16 @@ def test_json_facts(store: Path, capsys: pytest.CaptureFixture[str]) -> None:
     b = f["blocks"]
     assert b["count"] == 3 and b["block_nodes"] == 2
     # ids a0 b1 c2 d3 e4; in-edges: a<-c,d  b<-a,b  c<-b  d<-  e<-d
-    assert [(s["first_node"], s["nodes"], s["edges"]) for s in b["sizes"]] == [(0, 2, 4), (2, 2, 1), (4, 1, 1)]
+    assert [(s["first_node"], s["nodes"], s["edges"]) for s in b["sizes"]] == [
+        (0, 2, 4),
+        (2, 2, 1),
+        (4, 1, 1),
+    ]
     files = {p.name: p.stat().st_size for p in (store / "shards").iterdir()}
     for s in b["sizes"]:
-        assert s["bytes"] == sum(v for k, v in files.items() if k.startswith(f"block-{s['index']:06d}."))
+        assert s["bytes"] == sum(
+            v for k, v in files.items() if k.startswith(f"block-{s['index']:06d}.")
+        )
     assert (b["edges_min"], b["edges_max"]) == (1, 4)
     assert f["out_degree"]["max"] == 2 and f["in_degree"]["max"] == 2
 
@@ -62,8 +68,20 @@ def test_text_shows_every_fact(store: Path, capsys: pytest.CaptureFixture[str]) 
     capsys.readouterr()
     assert main(["inspect", str(store)]) == 0
     out = capsys.readouterr().out
-    for label in ("nodes", "edges", "dead ends", "self-loops", "duplicates merged", "no in-links",
-                  "out-degree", "in-degree", "blocks", "bytes on disk", "block 0", "block 2"):
+    for label in (
+        "nodes",
+        "edges",
+        "dead ends",
+        "self-loops",
+        "duplicates merged",
+        "no in-links",
+        "out-degree",
+        "in-degree",
+        "blocks",
+        "bytes on disk",
+        "block 0",
+        "block 2",
+    ):
         assert label in out, label
     lines = {ln.split("  ")[0].strip(): ln for ln in out.splitlines()}
     assert lines["nodes"].split()[1] == "5" and lines["dead ends"].split()[2] == "1"
@@ -84,7 +102,9 @@ def test_degree_quantiles_against_numpy(tmp_path: Path) -> None:
         q = facts[name]
         # numpy.quantile with its default (linear) method
         expect = np.quantile(deg, [0, 0.5, 0.9, 0.99, 0.999, 1])
-        np.testing.assert_allclose([q[k] for k in ("min", "p50", "p90", "p99", "p999", "max")], expect)
+        np.testing.assert_allclose(
+            [q[k] for k in ("min", "p50", "p90", "p99", "p999", "max")], expect
+        )
     assert facts["dead_ends"] == int(np.count_nonzero(out_deg == 0))
     assert facts["no_in_links"] == int(np.count_nonzero(in_deg == 0))
     assert facts["blocks"]["count"] == len(facts["blocks"]["sizes"]) > 8

@@ -41,12 +41,16 @@ def _read_back(f: Path) -> dict[str, list[Any]]:
 
 @pytest.mark.parametrize("block_nodes", BLOCK_SIZES)
 @pytest.mark.parametrize("self_loops", ["keep", "drop"])
-def test_int_keys_random_multigraph(tmp_path: Path, block_nodes: int | None, self_loops: str) -> None:
+def test_int_keys_random_multigraph(
+    tmp_path: Path, block_nodes: int | None, self_loops: str
+) -> None:
     rng = np.random.default_rng(11)
     src, dst = random_graph(rng, 120, 600)  # duplicates, self-loops, dead ends, target-only nodes
     # spread the keys out and make some negative: ids must follow numeric order, not text order
     src, dst = src * 7 - 300, dst * 7 - 300
-    out, m = _build(tmp_path, {"src": src, "dst": dst}, block_nodes=block_nodes, self_loops=self_loops)
+    out, m = _build(
+        tmp_path, {"src": src, "dst": dst}, block_nodes=block_nodes, self_loops=self_loops
+    )
     d = _read_back(tmp_path / "e.parquet")
     assert_store_matches(out, d["src"], d["dst"], self_loops=self_loops)
     keys, ref = reference_csr(d["src"], d["dst"], self_loops=self_loops)
@@ -54,7 +58,9 @@ def test_int_keys_random_multigraph(tmp_path: Path, block_nodes: int | None, sel
     loops = sum(1 for s, t in zip(d["src"], d["dst"], strict=True) if s == t)
     kept_rows = len(d["src"]) - (loops if self_loops == "drop" else 0)
     assert m.counts["duplicates_merged"] == kept_rows - ref.nnz
-    assert m.counts["self_loops"] == (int(ref.diagonal().astype(bool).sum()) if self_loops == "keep" else 0)
+    assert m.counts["self_loops"] == (
+        int(ref.diagonal().astype(bool).sum()) if self_loops == "keep" else 0
+    )
     assert m.counts["self_loop_rows_dropped"] == (loops if self_loops == "drop" else 0)
     out_deg = np.diff(ref.tocsc().indptr)  # column j of A[dst, src] holds source j's out-links
     assert m.counts["dead_ends"] == int(np.count_nonzero(out_deg == 0))
@@ -64,7 +70,9 @@ def test_int_keys_random_multigraph(tmp_path: Path, block_nodes: int | None, sel
     np.testing.assert_array_equal(r.in_degree(), np.diff(ref.indptr))
     np.testing.assert_array_equal(r.out_weight(), out_deg.astype(np.float64))
     bn = block_nodes or shardrank.settings.BLOCK_NODES
-    assert [b.n_nodes for b in m.blocks] == [min(bn, m.n_nodes - i) for i in range(0, m.n_nodes, bn)]
+    assert [b.n_nodes for b in m.blocks] == [
+        min(bn, m.n_nodes - i) for i in range(0, m.n_nodes, bn)
+    ]
     shardrank.verify_store(r)
 
 
@@ -82,8 +90,16 @@ def test_string_keys_in_code_point_order(tmp_path: Path, block_nodes: int | None
     # invented hosts under the reserved .example domain; upper case, digits and non-ASCII keys
     # check the order: DuckDB compares VARCHAR byte-wise in UTF-8, which is code point order,
     # the order of Python's sorted() on str (common practice: UTF-8 preserves code point order)
-    pages = ["https://b.example/", "https://a.example/z", "https://a.example/Z", "https://a.example/10",
-             "https://a.example/9", "https://é.example/", "https://a.example/ä", "https://a.example/ab"]
+    pages = [
+        "https://b.example/",
+        "https://a.example/z",
+        "https://a.example/Z",
+        "https://a.example/10",
+        "https://a.example/9",
+        "https://é.example/",
+        "https://a.example/ä",
+        "https://a.example/ab",
+    ]
     rng = np.random.default_rng(3)
     src = [pages[i] for i in rng.integers(0, len(pages), 60)]
     dst = [pages[i] for i in rng.integers(0, len(pages) - 1, 60)]  # the last page only links out
@@ -96,12 +112,19 @@ def test_string_keys_in_code_point_order(tmp_path: Path, block_nodes: int | None
 
 @pytest.mark.parametrize("block_nodes", [1, 3, 64])
 @pytest.mark.parametrize("self_loops", ["keep", "drop"])
-def test_weights_of_duplicates_are_summed(tmp_path: Path, block_nodes: int, self_loops: str) -> None:
+def test_weights_of_duplicates_are_summed(
+    tmp_path: Path, block_nodes: int, self_loops: str
+) -> None:
     rng = np.random.default_rng(5)
     src, dst = random_graph(rng, 40, 300)
     w = rng.uniform(0.01, 10.0, 300)
-    out, m = _build(tmp_path, {"src": src, "dst": dst, "w": w}, weight="w", block_nodes=block_nodes,
-                    self_loops=self_loops)
+    out, m = _build(
+        tmp_path,
+        {"src": src, "dst": dst, "w": w},
+        weight="w",
+        block_nodes=block_nodes,
+        self_loops=self_loops,
+    )
     d = _read_back(tmp_path / "e.parquet")
     assert_store_matches(out, d["src"], d["dst"], d["w"], self_loops=self_loops)
     _, ref = reference_csr(d["src"], d["dst"], d["w"], self_loops=self_loops)
@@ -121,7 +144,7 @@ def test_integer_weights_and_string_keys(tmp_path: Path) -> None:
     # worked by hand: pkg-a -> pkg-b carries 2 + 3 = 5
     keys, indptr, indices, wt = read_store_csr(out)
     b = keys.index("pkg-b")
-    assert wt is not None and wt[indptr[b]:indptr[b + 1]].tolist() == [5.0]
+    assert wt is not None and wt[indptr[b] : indptr[b + 1]].tolist() == [5.0]
     assert m.counts["duplicates_merged"] == 1
 
 
@@ -147,7 +170,9 @@ def test_nodes_file_with_int_keys_and_block_size_one(tmp_path: Path) -> None:
     assert [b.n_edges for b in m.blocks] == [0, 0, 1, 1, 0]  # keys -1, 5, 6, 7, 100
 
 
-@pytest.mark.parametrize(("width", "dtype"), [("auto", "<u4"), (16, "<u2"), (32, "<u4"), (64, "<u8")])
+@pytest.mark.parametrize(
+    ("width", "dtype"), [("auto", "<u4"), (16, "<u2"), (32, "<u4"), (64, "<u8")]
+)
 def test_id_width_sets_the_source_dtype(tmp_path: Path, width: Any, dtype: str) -> None:
     src, dst = [3, 1, 2, 2], [1, 2, 3, 3]
     out, m = _build(tmp_path, {"src": src, "dst": dst}, id_width=width, block_nodes=2)

@@ -32,7 +32,9 @@ def _kind_of(path: Path) -> str:
     except OSError as e:
         raise BadInputError(f"{path}: cannot be read ({e.strerror})") from None
     if not head:
-        raise BadInputError(f"{path}: is empty (0 bytes)", hint="remove it from the inputs or re-export it")
+        raise BadInputError(
+            f"{path}: is empty (0 bytes)", hint="remove it from the inputs or re-export it"
+        )
     if head[:4] == b"PAR1":
         return "parquet"
     name = path.name.lower()
@@ -74,7 +76,9 @@ def _walk_visible(top: Path) -> list[tuple[str, list[str]]]:
     """
     out = []
     for root, dirs, fs in os.walk(top):
-        if layout.MANIFEST in fs and layout.SHARD_DIR in dirs:  # a store (say, built into its input dir)
+        if (
+            layout.MANIFEST in fs and layout.SHARD_DIR in dirs
+        ):  # a store (say, built into its input dir)
             dirs[:] = []
             continue
         dirs[:] = [d for d in dirs if not d.startswith((".", "_"))]
@@ -85,20 +89,29 @@ def _walk_visible(top: Path) -> list[tuple[str, list[str]]]:
 def resolve_inputs(args: list[str]) -> list[InputFile]:
     """Expand files, directories (recursively, hive layout included) and globs, in sorted order."""
     if not args:
-        raise BadInputError("no edge files given", hint="pass one or more Parquet/CSV files or directories")
+        raise BadInputError(
+            "no edge files given", hint="pass one or more Parquet/CSV files or directories"
+        )
     files: list[Path] = []
     for a in args:
         if any(ch in a for ch in "*?[") and not Path(a).exists():  # a name may hold "[1]"
             hits = sorted(Path(h) for h in glob.glob(a, recursive=True) if Path(h).is_file())
             if not hits:
-                raise BadInputError(f"{a}: no files match this pattern", hint="check the path and quoting")
+                raise BadInputError(
+                    f"{a}: no files match this pattern", hint="check the path and quoting"
+                )
             files.extend(hits)
             continue
         p = Path(a)
         if not p.exists():
             raise BadInputError(f"{a}: no such file or directory", hint="check the path")
         if p.is_dir():
-            hits = sorted(Path(root) / f for root, fs in _walk_visible(p) for f in fs if _is_data_file(Path(f)))
+            hits = sorted(
+                Path(root) / f
+                for root, fs in _walk_visible(p)
+                for f in fs
+                if _is_data_file(Path(f))
+            )
             if not hits:
                 raise BadInputError(
                     f"{a}: directory holds no Parquet or CSV/TSV files",

@@ -11,8 +11,18 @@ import duckdb
 from ..errors import BadInputError
 from .sources import InputFile
 
-INT_TYPES = {"TINYINT", "SMALLINT", "INTEGER", "BIGINT", "UTINYINT", "USMALLINT", "UINTEGER",
-             "UBIGINT", "HUGEINT", "UHUGEINT"}
+INT_TYPES = {
+    "TINYINT",
+    "SMALLINT",
+    "INTEGER",
+    "BIGINT",
+    "UTINYINT",
+    "USMALLINT",
+    "UINTEGER",
+    "UBIGINT",
+    "HUGEINT",
+    "UHUGEINT",
+}
 STRING_TYPES = {"VARCHAR"}
 NUMBER_TYPES = INT_TYPES | {"FLOAT", "DOUBLE", "REAL"}
 
@@ -46,11 +56,14 @@ def scan_sql(files: list[InputFile]) -> str:
     return "(" + " UNION ALL BY NAME ".join(parts) + ")"
 
 
-def _sniff(con: duckdb.DuckDBPyConnection, f: InputFile, delim: str | None) -> tuple[str, bool, list[tuple[str, str]]]:
+def _sniff(
+    con: duckdb.DuckDBPyConnection, f: InputFile, delim: str | None
+) -> tuple[str, bool, list[tuple[str, str]]]:
     opt = "" if delim is None else f", delim = {sql_str(delim)}"
     try:
         row = con.execute(
-            f"SELECT Delimiter, HasHeader, Columns FROM sniff_csv({sql_str(str(f.path))}, comment = '#'{opt})"
+            "SELECT Delimiter, HasHeader, Columns "
+            f"FROM sniff_csv({sql_str(str(f.path))}, comment = '#'{opt})"
         ).fetchall()[0]
     except duckdb.Error as e:
         raise BadInputError(
@@ -61,7 +74,10 @@ def _sniff(con: duckdb.DuckDBPyConnection, f: InputFile, delim: str | None) -> t
 
 
 def sniff_text(
-    con: duckdb.DuckDBPyConnection, files: list[InputFile], header: str, names: Sequence[str],
+    con: duckdb.DuckDBPyConnection,
+    files: list[InputFile],
+    header: str,
+    names: Sequence[str],
     min_columns: int = 2,
 ) -> list[InputFile]:
     """Decide each text file's delimiter and whether its first line is a header.
@@ -148,7 +164,9 @@ def choose_columns(
 
     def need(col: str, flag: str) -> str:
         if col not in types:
-            raise BadInputError(f"{where} has no column '{col}' (found: {found})", hint=f"pass {flag} COLUMN")
+            raise BadInputError(
+                f"{where} has no column '{col}' (found: {found})", hint=f"pass {flag} COLUMN"
+            )
         return col
 
     if src is None and dst is None and "src" in types and "dst" in types:
@@ -168,7 +186,9 @@ def choose_columns(
     need(dst, "--dst")
     if weight is not None:
         need(weight, "--weight")
-        if types[weight].upper() not in NUMBER_TYPES and not types[weight].upper().startswith("DECIMAL"):
+        if types[weight].upper() not in NUMBER_TYPES and not types[weight].upper().startswith(
+            "DECIMAL"
+        ):
             raise BadInputError(
                 f"{where}: weight column '{weight}' has type {types[weight]}, not a number",
                 hint="weights must be positive finite numbers",
@@ -177,7 +197,8 @@ def choose_columns(
     for col, k in ((src, ks), (dst, kd)):
         if k is None:
             raise BadInputError(
-                f"{where}: key column '{col}' has type {types[col]}; keys must be integers or strings",
+                f"{where}: key column '{col}' has type {types[col]}; "
+                "keys must be integers or strings",
                 hint="cast the column to BIGINT or VARCHAR before building",
             )
     if ks != kd:
@@ -213,7 +234,7 @@ def check_same_key_types(
                 raise BadInputError(
                     f"keys of mixed types: column '{col}' is {schema[col]} in {f.path} but "
                     f"{other_type} in {other}",
-                    hint="make every file's key columns the same type (all integers or all strings)",
+                    hint="make every file's key columns one type (all integers or all strings)",
                 )
             seen.setdefault(k, (str(f.path), schema[col]))
     if seen and cols.key_type not in seen:  # the text inputs hold keys of the other type
@@ -221,12 +242,12 @@ def check_same_key_types(
         raise BadInputError(
             f"keys of mixed types: {other} has {other_type} keys but the text edge files hold "
             f"{'integer' if cols.key_type == 'int64' else 'text'} keys",
-            hint="make every file's key columns the same type (all integers or all strings)",
+            hint="make every file's key columns one type (all integers or all strings)",
         )
 
 
 def arrow_reader(con: duckdb.DuckDBPyConnection, sql: str, batch_rows: int):  # type: ignore[no-untyped-def]
-    """Stream a query's result as Arrow record batches (DuckDB 1.x and 2.x spell this differently)."""
+    """Stream a query's result as Arrow record batches (DuckDB 1.x and 2.x name this apart)."""
     rel = con.sql(sql)
     if hasattr(rel, "to_arrow_reader"):
         return rel.to_arrow_reader(batch_rows)

@@ -91,7 +91,7 @@ def write_npy_atomic(path: Path, arr: np.ndarray) -> tuple[int, str]:
     a = np.ascontiguousarray(arr, dtype=arr.dtype.newbyteorder("<"))
     with atomic_open(path) as w:
         w.write(npy_header(a.dtype, a.shape[0]))
-        w.write(memoryview(a).cast("B"))
+        w.write(a.data.cast("B"))  # the array's own buffer, no copy
     return w.n_bytes, w.hexdigest()
 
 

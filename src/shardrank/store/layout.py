@@ -7,7 +7,7 @@
       nodes.parquet                       id (int64, 0..N-1), key (int64 or string)
       out_degree.npy                      int64[N]   out-links per node (after normalisation)
       in_degree.npy                       int64[N]   in-links per node
-      out_weight.npy                      float64[N] sum of out-link weights (= out-degree if unweighted)
+      out_weight.npy                      float64[N] sum of out-link weights (or out-degree)
       shards/block-000000.offsets.npy     int64[n_b + 1]  CSR row offsets, block-local
       shards/block-000000.sources.npy     uint16|uint32|uint64[e_b]  source ids, sorted per row
       shards/block-000000.weights.npy     float64[e_b]  edge weights (weighted stores only)

@@ -72,9 +72,23 @@ class StoreManifest:
 
     def to_json(self) -> dict[str, Any]:
         d = asdict(self)
-        order = ["format", "version", "fingerprint", "created", "n_nodes", "n_edges", "key_type",
-                 "weighted", "source_dtype", "block_nodes", "counts", "input", "options",
-                 "blocks", "files"]
+        order = [
+            "format",
+            "version",
+            "fingerprint",
+            "created",
+            "n_nodes",
+            "n_edges",
+            "key_type",
+            "weighted",
+            "source_dtype",
+            "block_nodes",
+            "counts",
+            "input",
+            "options",
+            "blocks",
+            "files",
+        ]
         return {k: d[k] for k in order}
 
 
@@ -88,11 +102,13 @@ def content_sha256(doc: dict[str, Any]) -> str:
     options, input, creation time), so no edit of manifest.json goes unnoticed.
     """
     body = {k: v for k, v in doc.items() if k != SELF_CHECKSUM}
-    return hashlib.sha256(json.dumps(body, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
+    return hashlib.sha256(
+        json.dumps(body, sort_keys=True, separators=(",", ":")).encode()
+    ).hexdigest()
 
 
 def encode_manifest(m: StoreManifest) -> bytes:
-    """The exact bytes of manifest.json: indented JSON with its own checksum after the fingerprint."""
+    """The exact bytes of manifest.json: indented JSON, its own checksum after the fingerprint."""
     doc = m.to_json()
     digest = content_sha256(doc)
     out: dict[str, Any] = {}
@@ -143,8 +159,10 @@ def parse_blocks(d: dict[str, Any], path: Path, n_nodes: int, n_edges: int) -> l
         if not isinstance(b, dict):
             raise _damaged(path, f"block {i} is not an object")
         info = BlockInfo(
-            index=_int(b, "index", path), first_node=_int(b, "first_node", path),
-            n_nodes=_int(b, "n_nodes", path, 1), n_edges=_int(b, "n_edges", path),
+            index=_int(b, "index", path),
+            first_node=_int(b, "first_node", path),
+            n_nodes=_int(b, "n_nodes", path, 1),
+            n_edges=_int(b, "n_edges", path),
         )
         if info.index != i or info.first_node != next_first:
             raise _damaged(path, f"block {i} does not follow block {i - 1}")
@@ -177,7 +195,9 @@ def parse_manifest(d: Any, path: Path) -> StoreManifest:
         raise _damaged(path, "manifest is not a JSON object")
     parse_format(d, path)
     if d.get(SELF_CHECKSUM) != content_sha256(d):
-        raise _damaged(path, "checksum mismatch (the manifest's contents changed since it was written)")
+        raise _damaged(
+            path, "checksum mismatch (the manifest's contents changed since it was written)"
+        )
     n_nodes = _int(d, "n_nodes", path, 1)
     n_edges = _int(d, "n_edges", path)
     key_type = d.get("key_type")
@@ -193,11 +213,19 @@ def parse_manifest(d: Any, path: Path) -> StoreManifest:
         if not isinstance(d.get(k), dict):
             raise _damaged(path, f"field '{k}' must be an object")
     m = StoreManifest(
-        n_nodes=n_nodes, n_edges=n_edges, key_type=key_type, weighted=weighted,
-        source_dtype=src, block_nodes=_int(d, "block_nodes", path, 1),
-        blocks=parse_blocks(d, path, n_nodes, n_edges), files=parse_files(d, path),
-        input=d["input"], options=d["options"], counts=d["counts"],
-        created=str(d.get("created", "")), version=d["version"],
+        n_nodes=n_nodes,
+        n_edges=n_edges,
+        key_type=key_type,
+        weighted=weighted,
+        source_dtype=src,
+        block_nodes=_int(d, "block_nodes", path, 1),
+        blocks=parse_blocks(d, path, n_nodes, n_edges),
+        files=parse_files(d, path),
+        input=d["input"],
+        options=d["options"],
+        counts=d["counts"],
+        created=str(d.get("created", "")),
+        version=d["version"],
         fingerprint=str(d.get("fingerprint", "")),
     )
     if m.fingerprint != m.compute_fingerprint():
@@ -228,5 +256,7 @@ def read_manifest(store: Path) -> StoreManifest:
     m = parse_manifest(d, path)
     # the checksum covers the contents; this covers the bytes (whitespace, escapes) as written
     if raw != (json.dumps(d, indent=2) + "\n").encode():
-        raise _damaged(path, "the file's bytes differ from what shardrank wrote (formatting changed)")
+        raise _damaged(
+            path, "the file's bytes differ from what shardrank wrote (formatting changed)"
+        )
     return m

@@ -39,7 +39,9 @@ def _load_npy(path: Path, name: str) -> np.ndarray:
     try:
         return np.load(path, mmap_mode="r", allow_pickle=False)
     except (ValueError, OSError, EOFError) as e:
-        raise DamagedDataError(f"{path}: cannot be read as an array ({e})", hint=_DAMAGE_HINT) from None
+        raise DamagedDataError(
+            f"{path}: cannot be read as an array ({e})", hint=_DAMAGE_HINT
+        ) from None
 
 
 class StoreReader:
@@ -120,7 +122,7 @@ class StoreReader:
         return _load_npy(self.path / layout.IN_DEGREE, "in_degree")
 
     def out_weight(self) -> np.ndarray:
-        """float64[N] total out-weight (the out-degree as float64 when unweighted), memory-mapped."""
+        """float64[N] total out-weight (unweighted: the out-degree as float64), memory-mapped."""
         return _load_npy(self.path / layout.OUT_WEIGHT, "out_weight")
 
     def shard(self, index: int) -> Shard:

@@ -44,11 +44,15 @@ def verify_store(
         p_off = reader.path / layout.shard_offsets(b.index)
         p_src = reader.path / layout.shard_sources(b.index)
         if off.dtype != np.int64 or off.shape != (b.n_nodes + 1,):
-            raise _fail(p_off, f"dtype/shape {off.dtype}{off.shape}, expected int64({b.n_nodes + 1},)")
+            raise _fail(
+                p_off, f"dtype/shape {off.dtype}{off.shape}, expected int64({b.n_nodes + 1},)"
+            )
         if off[0] != 0 or off[-1] != b.n_edges or np.any(np.diff(off) < 0):
             raise _fail(p_off, "offsets are not monotone from 0 to the block's edge count")
         if src.dtype.str != m.source_dtype or src.shape != (b.n_edges,):
-            raise _fail(p_src, f"dtype/shape {src.dtype.str}{src.shape} does not match the manifest")
+            raise _fail(
+                p_src, f"dtype/shape {src.dtype.str}{src.shape} does not match the manifest"
+            )
         if b.n_edges:
             if int(src.max()) >= n:
                 raise _fail(p_src, f"source id {int(src.max())} out of range (N = {n})")
@@ -74,13 +78,24 @@ def verify_store(
                 w_implied += np.bincount(src, weights=w, minlength=n)
     out_deg = np.asarray(reader.out_degree())
     if not np.array_equal(out_deg, out_implied):
-        raise _fail(reader.path / layout.OUT_DEGREE, "differs from the out-degrees the shards imply")
+        raise _fail(
+            reader.path / layout.OUT_DEGREE, "differs from the out-degrees the shards imply"
+        )
     ow = np.asarray(reader.out_weight())
     expect = w_implied if w_implied is not None else out_implied.astype(np.float64)
-    if ow.dtype != np.float64 or ow.shape != (n,) or not np.allclose(ow, expect, rtol=1e-12, atol=0):
-        raise _fail(reader.path / layout.OUT_WEIGHT, "differs from the out-weights the shards imply")
+    if (
+        ow.dtype != np.float64
+        or ow.shape != (n,)
+        or not np.allclose(ow, expect, rtol=1e-12, atol=0)
+    ):
+        raise _fail(
+            reader.path / layout.OUT_WEIGHT, "differs from the out-weights the shards imply"
+        )
     if not np.all(np.isfinite(ow)) or np.any(ow[out_deg > 0] <= 0):
-        raise _fail(reader.path / layout.OUT_WEIGHT, "out-weights must be finite, and positive for every node with out-links")
+        raise _fail(
+            reader.path / layout.OUT_WEIGHT,
+            "out-weights must be finite, and positive for every node with out-links",
+        )
     t = pq.read_table(reader.path / layout.NODES, columns=["id"])
     ids = t.column("id").to_numpy()
     if ids.shape != (n,) or not np.array_equal(ids, np.arange(n)):

@@ -14,7 +14,14 @@ from typing import IO, Any
 import numpy as np
 
 from . import layout
-from .atomic import HashingWriter, npy_header, publish_dir, sha256_file, write_bytes_atomic, write_npy_atomic
+from .atomic import (
+    HashingWriter,
+    npy_header,
+    publish_dir,
+    sha256_file,
+    write_bytes_atomic,
+    write_npy_atomic,
+)
 from .manifest import BlockInfo, FileInfo, StoreManifest, encode_manifest
 
 
@@ -35,11 +42,13 @@ class _StreamFile:
         self.written += a.shape[0]
         if self.written > self.expected:
             raise RuntimeError(f"{self.path}: more items than announced ({self.expected})")
-        self._w.write(memoryview(a).cast("B"))
+        self._w.write(a.data.cast("B"))
 
     def close(self) -> FileInfo:
         if self.written != self.expected:
-            raise RuntimeError(f"{self.path}: {self.written} items written, {self.expected} announced")
+            raise RuntimeError(
+                f"{self.path}: {self.written} items written, {self.expected} announced"
+            )
         self._f.flush()
         os.fsync(self._f.fileno())
         self._f.close()
@@ -49,7 +58,9 @@ class _StreamFile:
 class StoreWriter:
     """Builds one store in ``tmp`` (a sibling of its final path)."""
 
-    def __init__(self, tmp: Path, n_nodes: int, block_nodes: int, source_dtype: str, weighted: bool):
+    def __init__(
+        self, tmp: Path, n_nodes: int, block_nodes: int, source_dtype: str, weighted: bool
+    ):
         self.tmp = tmp
         self.n_nodes = n_nodes
         self.block_nodes = block_nodes
@@ -89,7 +100,9 @@ class StoreWriter:
         b = self.blocks[i]
         self._src = _StreamFile(self.tmp / layout.shard_sources(i), self.source_dtype, b.n_edges)
         if self.weighted:
-            self._wgt = _StreamFile(self.tmp / layout.shard_weights(i), np.dtype(np.float64), b.n_edges)
+            self._wgt = _StreamFile(
+                self.tmp / layout.shard_weights(i), np.dtype(np.float64), b.n_edges
+            )
         self._cur = i
 
     def _close_block(self) -> None:
@@ -126,13 +139,24 @@ class StoreWriter:
 
     # -- manifest ------------------------------------------------------------------------------
     def write_manifest(
-        self, key_type: str, input_info: dict[str, Any], options: dict[str, Any], counts: dict[str, int]
+        self,
+        key_type: str,
+        input_info: dict[str, Any],
+        options: dict[str, Any],
+        counts: dict[str, int],
     ) -> StoreManifest:
         m = StoreManifest(
-            n_nodes=self.n_nodes, n_edges=self.n_edges, key_type=key_type, weighted=self.weighted,
-            source_dtype=self.source_dtype.newbyteorder("<").str, block_nodes=self.block_nodes,
-            blocks=self.blocks, files=dict(sorted(self.files.items())), input=input_info,
-            options=options, counts=counts,
+            n_nodes=self.n_nodes,
+            n_edges=self.n_edges,
+            key_type=key_type,
+            weighted=self.weighted,
+            source_dtype=self.source_dtype.newbyteorder("<").str,
+            block_nodes=self.block_nodes,
+            blocks=self.blocks,
+            files=dict(sorted(self.files.items())),
+            input=input_info,
+            options=options,
+            counts=counts,
             created=datetime.now(UTC).isoformat(timespec="seconds"),
         )
         m.fingerprint = m.compute_fingerprint()
