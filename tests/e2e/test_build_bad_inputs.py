@@ -403,3 +403,9 @@ def test_weights_whose_sums_overflow(
     f = tmp_path / "huge.parquet"
     pq.write_table(pa.table({"src": src, "dst": dst, "w": w}), f)
     _fails([str(f), "--weight", "w"], out, capsys, "huge.parquet", "overflows", "scale the weights")
+
+
+def test_ragged_rows(tmp_path: Path, out: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    f = tmp_path / "ragged.csv"
+    f.write_text("src,dst\n1,2\n2,3,4\n3,1\n")  # one row has three fields
+    _fails([str(f)], out, capsys, "ragged.csv", "one column", "same number of fields")

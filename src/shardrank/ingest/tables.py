@@ -99,6 +99,13 @@ def sniff_text(
             d2 = _sniff(con, f, " ")
             if len(d2[2]) >= min_columns:
                 delim, has_header, cols = d2
+            else:
+                raise BadInputError(
+                    f"{f.path}: found one column ({cols[0][0]!r}), not an edge list: rows "
+                    "must hold the same number of fields, separated by a comma, tab or space",
+                    hint="fix the malformed rows (a sniffer reads the file as one column when row "
+                    "lengths differ), or export the edges as Parquet",
+                )
         if header != "auto":
             h = header == "yes"
         elif not has_header:
