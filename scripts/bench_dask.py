@@ -7,6 +7,10 @@ each; started once and restarted between runs so each worker's peak memory is it
 Printed per run: iterations, iterate seconds (run.json), seconds per iteration, the ratio to
 the local engine, driver and worker peak memory, and whether the scores are bitwise equal.
 
+A second table times single steps in this process through the engine API (the engines the
+runs use): the first step (workers load the kernels and page in their shards) and the median
+of the next --steps steps, so warm-up and steady state are told apart.
+
 usage: scripts/bench_dask.py [--store /work/bench-data/s22] [--workers 2] [--tol 1e-9]
                              [--methods power,gauss-seidel] [--out /tmp/bench-dask]
 """
@@ -16,6 +20,7 @@ from __future__ import annotations
 import argparse
 import json
 import logging
+import os
 import resource
 import shutil
 import subprocess
@@ -69,6 +74,59 @@ def _rank(store: str, run: Path, method: str, tol: float, extra: list[str]) -> d
     }
 
 
+def _steps(engine: Any, method: str, r: np.ndarray, n: int) -> tuple[float, float]:
+    """(first step seconds, median of the next n); ``r`` advances in place."""
+    times = []
+    for _ in range(n + 1):
+        t0 = time.perf_counter()
+        if method == "power":
+            engine.power_step(r)
+        else:
+            engine.gauss_seidel_sweep(r)
+        times.append(time.perf_counter() - t0)
+        r /= r.sum()
+    return times[0], float(np.median(times[1:]))
+
+
+def _steady(store: str, address: str, out: Path, methods: list[str], n: int) -> list[str]:
+    from shardrank.solve.dask_engine import DaskEngine
+    from shardrank.solve.engine import LocalEngine
+    from shardrank.solve.options import RankOptions
+    from shardrank.solve.problem import Problem, Teleport
+    from shardrank.store.urls import open_store
+
+    reader = open_store(store)
+    problem = Problem(0.85, Teleport(reader.n_nodes), "teleport")
+    lines = []
+    for method in methods:
+        start = np.full(reader.n_nodes, 1.0 / reader.n_nodes)
+        r_loc, r_dk = start.copy(), start.copy()
+        loc_first, loc_med = _steps(LocalEngine(reader, problem), method, r_loc, n)
+        dk = DaskEngine.from_options(
+            reader, problem, RankOptions(engine="dask", scheduler=address), out / "steady"
+        )
+        try:
+            dk_first, dk_med = _steps(dk, method, r_dk, n)
+        finally:
+            dk.close()
+        same = "yes" if np.array_equal(r_loc, r_dk) else "NO"
+        lines.append(
+            f"| {method} | {loc_first:.3f} | {loc_med:.3f} | {dk_first:.3f} | {dk_med:.3f} | "
+            f"{dk_med / loc_med:.2f}x | {same} |"
+        )
+        print(
+            json.dumps(
+                {"steady": method, "local": [loc_first, loc_med], "dask": [dk_first, dk_med]}
+            ),
+            flush=True,
+        )
+    return lines
+
+
+def _load() -> str:
+    return "load average " + " ".join(f"{x:.2f}" for x in os.getloadavg())
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(
         description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
@@ -78,6 +136,8 @@ def main() -> int:
     ap.add_argument("--tol", type=float, default=1e-9)
     ap.add_argument("--methods", default="power,gauss-seidel")
     ap.add_argument("--out", default="/tmp/bench-dask")
+    ap.add_argument("--steps", type=int, default=6, help="steps timed after the first (0: skip)")
+    ap.add_argument("--no-runs", action="store_true", help="only the single-step table")
     a = ap.parse_args()
     import distributed
 
@@ -107,8 +167,14 @@ def main() -> int:
         flush=True,
     )
     rows = []
+    print(_load(), flush=True)
     try:
-        for method in a.methods.split(","):
+        steady = (
+            _steady(a.store, cluster.scheduler_address, out, a.methods.split(","), a.steps)
+            if a.steps
+            else []
+        )
+        for method in [] if a.no_runs else a.methods.split(","):
             loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
             client.restart()
             dk = _rank(
@@ -130,11 +196,12 @@ def main() -> int:
         client.close()
         cluster.close()
     print()
-    print(
-        "| engine | method | iterations | iterate s | s / iteration | vs local | driver peak MiB "
-        "| worker peak MiB | bitwise equal |"
-    )
-    print("|---|---|---:|---:|---:|---:|---:|---:|---|")
+    if rows:
+        print(
+            "| engine | method | iterations | iterate s | s / iteration | vs local "
+            "| driver peak MiB | worker peak MiB | bitwise equal |"
+        )
+        print("|---|---|---:|---:|---:|---:|---:|---:|---|")
     base = {m: r for n, m, r in rows if n == "local"}
     for name, method, r in rows:
         ratio = r["iterate"] / base[method]["iterate"]
@@ -144,6 +211,15 @@ def main() -> int:
             f"| {name} | {method} | {r['iterations']} | {r['iterate']:.1f} | {r['per_iter']:.3f} | "
             f"{ratio:.2f}x | {r['driver_rss'] / 2**20:,.0f} | {wr} | {eq} |"
         )
+    if steady:
+        print()
+        print(f"single steps (seconds; first, then the median of the next {a.steps}):")
+        print(
+            "| method | local first | local median | dask first | dask median | vs local | same r |"
+        )
+        print("|---|---:|---:|---:|---:|---:|---|")
+        print("\n".join(steady))
+    print(_load())
     return 0
 
 

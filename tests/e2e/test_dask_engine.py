@@ -339,6 +339,18 @@ def test_unreachable_scheduler_is_exit_2(
     assert "no Dask scheduler answers" in err and "hint:" in err
 
 
+def test_exchange_the_workers_cannot_read_is_exit_2(
+    tmp_path: Path, client: Any, stores: dict[str, Path], capsys: pytest.CaptureFixture[str]
+) -> None:
+    """memory:// lives in one process: the driver's writes are invisible to the workers, like
+    a run directory on a disk that only the driver's machine mounts."""
+    args = ["rank", str(stores["plain"]), "--out", str(tmp_path / "run"), "--engine", "dask"]
+    args += ["--scheduler", client.scheduler.address, "--exchange", "memory://exchange", "-q"]
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert "2 of 2 Dask workers cannot read" in err and "hint:" in err
+
+
 def test_dask_options_need_the_dask_engine(
     tmp_path: Path, stores: dict[str, Path], capsys: pytest.CaptureFixture[str]
 ) -> None:

@@ -90,7 +90,7 @@ def cmd_resume(a: argparse.Namespace, rep: Reporter) -> int:
         base = {k: doc["options"][k] for k in given}
         base.update({k: v for k, v in given.items() if v is not None})
         expect = RankOptions(**base)
-    res = api.resume(a.run, rep, store=a.store, threads=a.threads, expect=expect)
+    res = api.resume(a.run, rep, store=a.store, threads=a.threads, expect=expect, scheduler=a.scheduler)
     a.overwrite = False
     return _finish(res, a, rep)
 

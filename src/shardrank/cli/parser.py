@@ -149,6 +149,8 @@ example:
     p.add_argument("run", metavar="RUN", help="the run directory of an interrupted `shardrank rank`")
     p.add_argument("--store", metavar="STORE", help="the store, if it moved since the run started")
     p.add_argument("--threads", type=int, metavar="N", help="kernel threads")
+    p.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="a Dask run: the scheduler's address, if it changed since the run started")
     _rank_opts(p, defaults=False)
     _common(p)
 

@@ -39,6 +39,7 @@ from typing import Any
 import numpy as np
 from distributed import Client, Future, LocalCluster, as_completed
 from distributed.client import FutureCancelledError
+from distributed.comm.core import CommClosedError
 from distributed.scheduler import KilledWorker
 
 from .. import settings
@@ -46,7 +47,7 @@ from ..errors import BadInputError, ShardrankError
 from ..kernels import n_chunks, scale_range
 from ..store import urls
 from ..store.reader import StoreReader
-from .dask_tasks import BlockTask, StepJob, power_block, step_file, sweep_block
+from .dask_tasks import BlockTask, StepJob, power_block, probe, step_file, sweep_block
 from .options import RankOptions
 from .problem import Problem
 
@@ -96,8 +97,9 @@ def _connect(options: RankOptions) -> tuple[Client, LocalCluster | None]:
             ) from None
         return client, None
     n = options.workers or os.cpu_count() or 1
-    # one thread per worker process: the kernels release the GIL, and numba's parallel
-    # regions are not shared between threads of one process
+    # one thread per worker process: numba's default (workqueue) threading layer must not be
+    # entered by two threads of a process at once; a task that needs more cores uses numba's
+    # own threads (see dask_tasks._default_threads)
     cluster = LocalCluster(
         n_workers=n,
         threads_per_worker=1,
@@ -141,6 +143,7 @@ class DaskEngine:
         self.root = exchange.child(self.session)
         self.store = urls.location_of(reader).url
         self.step = 0
+        self._check_workers()
         self._teleport = [self._teleport_slice(b.first_node, b.n_nodes) for b in self.blocks]
 
     @classmethod
@@ -161,6 +164,30 @@ class DaskEngine:
             if cluster is not None:
                 cluster.close()
             raise
+
+    def _check_workers(self) -> None:
+        """Every worker must open the same store and read the exchange: a run directory on a
+        disk only the driver sees is the usual mistake, and is cheaper to report now."""
+        mark = self.root.child("probe")
+        token = self.session.encode()
+        if mark.local is not None:
+            mark.local.parent.mkdir(parents=True, exist_ok=True)
+            mark.local.write_bytes(token)
+        else:
+            fs, path = urls.filesystem(mark)
+            fs.makedirs(path.rsplit("/", 1)[0], exist_ok=True)
+            fs.pipe_file(path, token)
+        found = self.client.run(probe, self.store, self.reader.fingerprint, mark.url, token)
+        urls.remove_tree(mark)
+        bad = {w: err for w, err in sorted(found.items()) if err}
+        if bad:
+            where = "; ".join(f"{w}: {err}" for w, err in list(bad.items())[:3])
+            raise BadInputError(
+                f"{len(bad)} of {len(found)} Dask workers cannot read the store or the exchange "
+                f"({where})",
+                hint="put the store and the run directory (or --exchange) on storage every worker "
+                "mounts at the same path, or use URLs (s3://...) that every worker can open",
+            )
 
     # -- the driver's share: scaling, and what the tasks read -------------------------------
     def _teleport_slice(self, first: int, n: int) -> tuple[np.ndarray, np.ndarray] | None:
@@ -240,7 +267,7 @@ class DaskEngine:
                 hint="give workers more memory (see docs/scale-out.md), then "
                 "`shardrank resume RUN` continues from the last checkpoint",
             ) from None
-        except (FutureCancelledError, OSError) as e:
+        except (FutureCancelledError, CommClosedError) as e:
             raise ShardrankError(
                 f"dask: lost the cluster during step {self.step} ({e!r})",
                 hint="check the scheduler, then `shardrank resume RUN` continues from "

@@ -92,6 +92,20 @@ def _reader(job: StepJob) -> StoreReader:
         return r
 
 
+def probe(store: str, fingerprint: str, probe_file: str, expect: bytes) -> str | None:
+    """Run on every worker before the first step: None if it can open the store and read the
+    exchange as the driver does, else what went wrong."""
+    try:
+        r = urls.open_store(store, cache=_cache_dir())
+        if r.fingerprint != fingerprint:
+            return f"{store} is another store here (fingerprint {r.fingerprint[:12]}...)"
+        if urls.read_bytes(urls.parse_location(probe_file)) != expect:
+            return f"{probe_file} holds other bytes here"
+    except Exception as e:  # reported to the driver, which raises one error for all workers
+        return f"{type(e).__name__}: {e}"
+    return None
+
+
 def _vector(loc: urls.Location) -> np.ndarray:
     """A float64 vector the driver wrote: memory-mapped when local, else fetched once per worker."""
     if loc.local is not None:

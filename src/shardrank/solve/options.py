@@ -58,6 +58,9 @@ class RankOptions:
             raise BadInputError("--checkpoint-seconds must be positive")
         if self.workers is not None and self.workers < 1:
             raise BadInputError("--workers must be at least 1")
+        if self.scheduler and self.workers:
+            raise BadInputError("--workers starts local workers; it does not go with --scheduler",
+                                hint="size a remote cluster with `dask worker --nworkers N`")
         if self.engine != "dask" and (self.scheduler or self.workers or self.exchange):
             raise BadInputError("--scheduler, --workers and --exchange apply to --engine dask only",
                                 hint="add --engine dask")

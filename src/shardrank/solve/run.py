@@ -203,8 +203,12 @@ def rank(store: str | Path, out: str | Path, options: RankOptions | None = None,
 
 
 def resume(run: str | Path, reporter: Reporter | None = None, store: str | Path | None = None,
-           threads: int | None = None, expect: RankOptions | None = None) -> RankResult:
-    """Continue a stopped run from its newest checkpoint that verifies."""
+           threads: int | None = None, expect: RankOptions | None = None,
+           scheduler: str | None = None) -> RankResult:
+    """Continue a stopped run from its newest checkpoint that verifies.
+
+    ``scheduler`` moves a Dask run to another scheduler address (the cluster was restarted).
+    """
     rep = reporter or Reporter()
     p = Path(run)
     doc = read_run_json(p)
@@ -215,6 +219,11 @@ def resume(run: str | Path, reporter: Reporter | None = None, store: str | Path 
     o = RankOptions(**{k: v for k, v in doc["options"].items() if k in known})
     if threads is not None:
         o.threads = threads
+    if scheduler is not None:
+        if o.engine != "dask":
+            raise BadInputError(f"{p}: --scheduler applies to Dask runs; this run used --engine {o.engine}")
+        o.scheduler, o.workers = scheduler, None
+        doc["options"].update(scheduler=scheduler, workers=None)
     if expect is not None and expect.answer_options() != o.answer_options():
         diff = {k: (v, o.answer_options()[k]) for k, v in expect.answer_options().items() if o.answer_options()[k] != v}
         raise BadInputError(f"{p}: options differ from the run's ({', '.join(f'{k}: {a} vs {b}' for k, (a, b) in diff.items())})",

@@ -20,6 +20,7 @@ import hashlib
 import json
 import os
 import shutil
+import threading
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -182,7 +183,7 @@ def fetch_file(src: Location, dest: Path, info: FileInfo) -> Path:
         return dest
     fs, path = filesystem(src)
     dest.parent.mkdir(parents=True, exist_ok=True)
-    tmp = dest.with_name(f"{dest.name}.partial-{os.getpid()}")
+    tmp = dest.with_name(f"{dest.name}.partial-{os.getpid()}-{threading.get_ident()}")
     h = hashlib.sha256()
     n = 0
     try:
