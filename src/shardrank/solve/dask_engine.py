@@ -32,7 +32,8 @@ import math
 import os
 import secrets
 import socket
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -85,7 +86,8 @@ def _connect(options: RankOptions) -> tuple[Client, LocalCluster | None]:
             raise BadInputError(
                 f"--scheduler {options.scheduler}: no Dask scheduler answers ({e})",
                 hint="start one with `dask scheduler` (and `dask worker ADDRESS` on each "
-                "machine), or omit --scheduler to use local worker processes",
+                "machine), or omit --scheduler to use local worker processes; a run can "
+                "move: `shardrank resume RUN --scheduler ADDRESS`",
             ) from None
         try:
             client.wait_for_workers(1, timeout=WORKERS_SECONDS)
@@ -143,7 +145,8 @@ class DaskEngine:
         self.root = exchange.child(self.session)
         self.store = urls.location_of(reader).url
         self.step = 0
-        self._check_workers()
+        with self._cluster_errors():
+            self._check_workers()
         self._teleport = [self._teleport_slice(b.first_node, b.n_nodes) for b in self.blocks]
 
     @classmethod
@@ -259,8 +262,14 @@ class DaskEngine:
         return sorted(self.client.nthreads())
 
     def _result(self, fut: Future) -> tuple[np.ndarray, np.ndarray]:
+        y, part = fut.result()
+        return y, part
+
+    @contextmanager
+    def _cluster_errors(self) -> Iterator[None]:
+        """Turn a lost cluster into an error that says what to do (the driver has checkpoints)."""
         try:
-            y, part = fut.result()
+            yield
         except KilledWorker as e:
             raise ShardrankError(
                 f"dask: a task killed its worker repeatedly ({e})",
@@ -269,14 +278,21 @@ class DaskEngine:
             ) from None
         except (FutureCancelledError, CommClosedError) as e:
             raise ShardrankError(
-                f"dask: lost the cluster during step {self.step} ({e!r})",
-                hint="check the scheduler, then `shardrank resume RUN` continues from "
-                "the last checkpoint",
+                f"dask: lost the cluster in step {self.step} ({type(e).__name__}: {e})",
+                hint="restart the scheduler and workers, then `shardrank resume RUN "
+                "--scheduler ADDRESS` continues from the last checkpoint",
             ) from None
-        return y, part
 
     # -- the two sweeps ----------------------------------------------------------------------
     def power_step(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+        with self._cluster_errors():
+            return self._power_step(r, on_block)
+
+    def gauss_seidel_sweep(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+        with self._cluster_errors():
+            return self._gauss_seidel_sweep(r, on_block)
+
+    def _power_step(self, r: np.ndarray, on_block: BlockHook | None) -> float:
         dead = [self._scale_block(r, i) for i in range(len(self.blocks))]
         dead_mass = math.fsum(dead)
         step_dir, job = self._begin_step(r)
@@ -300,7 +316,7 @@ class DaskEngine:
         urls.remove_tree(step_dir)
         return math.fsum(res)
 
-    def gauss_seidel_sweep(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+    def _gauss_seidel_sweep(self, r: np.ndarray, on_block: BlockHook | None) -> float:
         dead = [self._scale_block(r, i) for i in range(len(self.blocks))]
         step_dir, job = self._begin_step(r)
         workers = self._workers()
