@@ -337,6 +337,7 @@ def test_unreachable_scheduler_is_exit_2(
     )
     err = capsys.readouterr().err
     assert "no Dask scheduler answers" in err and "hint:" in err
+    assert not (tmp_path / "run").exists()
 
 
 def test_exchange_the_workers_cannot_read_is_exit_2(
@@ -349,6 +350,7 @@ def test_exchange_the_workers_cannot_read_is_exit_2(
     assert main(args) == 2
     err = capsys.readouterr().err
     assert "2 of 2 Dask workers cannot read" in err and "hint:" in err
+    assert not (tmp_path / "run").exists()  # exit 2: nothing written
 
 
 def test_dask_options_need_the_dask_engine(

@@ -145,8 +145,12 @@ class DaskEngine:
         self.root = exchange.child(self.session)
         self.store = urls.location_of(reader).url
         self.step = 0
-        with self._cluster_errors():
-            self._check_workers()
+        try:
+            with self._cluster_errors():
+                self._check_workers()
+        except BaseException:
+            urls.remove_tree(self.exchange)
+            raise
         self._teleport = [self._teleport_slice(b.first_node, b.n_nodes) for b in self.blocks]
 
     @classmethod

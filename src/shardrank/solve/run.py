@@ -7,6 +7,7 @@ scores.npy and scores.parquet, and rewrite run.json with the outcome.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import os
 import resource
@@ -116,7 +117,14 @@ class _Run:
             factory = ENGINES[o.engine]
         except KeyError:
             raise BadInputError(f"--engine {o.engine!r} is not one of {', '.join(ENGINES)}") from None
-        engine: Engine = factory(reader, problem, o, self.run)
+        try:
+            engine: Engine = factory(reader, problem, o, self.run)
+        except BaseException:
+            if "resumed" not in self.doc:  # a new run that could not start leaves nothing behind
+                (self.run / runfiles.RUN_JSON).unlink(missing_ok=True)
+                with contextlib.suppress(OSError):
+                    self.run.rmdir()
+            raise
         meta = {"store_fingerprint": reader.fingerprint, "answer_options": o.answer_options(),
                 "teleport_hash": self.doc["teleport"]["hash"]}
 
