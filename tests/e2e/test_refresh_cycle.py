@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
 
@@ -273,3 +274,27 @@ def test_fast_comparison_agrees_with_compare_runs(tmp_path: Path, keys: str) -> 
         assert got["risers"] == want["risers"][:3] and got["fallers"] == want["fallers"][:3]
         for name in ("l1", "max_abs_diff", "kendall_tau", "spearman_rho"):
             assert got[name] == pytest.approx(want[name], rel=1e-12, abs=1e-15), name
+
+
+def test_warm_start_fast_path_matches_the_join(tmp_path: Path) -> None:
+    """The warm start of a refresh reads the published run by integer key with a searchsorted
+    (solve/tables.py); it must give exactly what the DuckDB join gives."""
+    from shardrank.solve import tables
+    from shardrank.store.reader import StoreReader
+
+    s1 = shardrank.build_store([snapshot(tmp_path / "n1/e.parquet")], tmp_path / "s1")
+    assert s1.n_nodes == N
+    shardrank.rank(tmp_path / "s1", tmp_path / "r1")
+    # night 2 has new pages, and loses pages 4900..4949 (every edge touching them is dropped)
+    t = pq.read_table(snapshot(tmp_path / "n2/e.parquet", churn=0.01))
+    gone = pa.array(range(4900, 4950))
+    t = t.filter(pc.invert(pc.or_(pc.is_in(t["src"], gone), pc.is_in(t["dst"], gone))))
+    pq.write_table(t, tmp_path / "n2/e.parquet")
+    shardrank.build_store([tmp_path / "n2/e.parquet"], tmp_path / "s2")
+    reader = StoreReader.open(tmp_path / "s2")
+    fast = tables._init_from_int_run(reader, str(tmp_path / "r1"))
+    assert fast is not None
+    join = tables._join(reader, str(tmp_path / "r1"), ("score",), "warm-start", True)
+    assert np.array_equal(fast[0], join[0]) and np.array_equal(fast[1], join[1])
+    assert fast[2] == join[2] > 0  # and some of last night's keys are gone
+    assert fast[0].size < reader.n_nodes  # some keys are new tonight

@@ -20,7 +20,6 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
-from scipy import stats
 
 from ..results import runfiles
 
@@ -55,6 +54,42 @@ def top_ids(scores: np.ndarray, k: int) -> np.ndarray:
     ties = np.flatnonzero(scores == t)[: k - above.size]
     ids = np.concatenate([above, ties])
     return ids[np.lexsort((ids, -scores[ids]))]
+
+
+def _avg_ranks(x: np.ndarray) -> np.ndarray:
+    """Ranks 1..n, ties sharing their average rank."""
+    order = np.argsort(x, kind="stable")
+    xs = x[order]
+    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])
+    ends = np.r_[starts[1:], xs.size]
+    ranks = np.empty(x.size)
+    ranks[order] = np.repeat((starts + ends + 1) / 2.0, ends - starts)
+    return ranks
+
+
+def correlations(x: np.ndarray, y: np.ndarray) -> tuple[float | None, float | None]:
+    """Kendall's tau-b and Spearman's rho of two short vectors (the top-k union; O(n^2) pairs).
+
+    tau-b = (concordant - discordant) / sqrt((n0 - ties in x) (n0 - ties in y)), n0 = n(n-1)/2;
+    rho = Pearson correlation of the average ranks. The definitions of scipy.stats.kendalltau
+    (variant "b") and spearmanr, imported here only in the test that checks the agreement:
+    importing scipy.stats costs more than the whole comparison on small stores.
+    """
+    n = x.size
+    if n < 2:
+        return None, None
+    iu = np.triu_indices(n, 1)
+    sx = np.sign(x[:, None] - x[None, :])[iu]
+    sy = np.sign(y[:, None] - y[None, :])[iu]
+    n0 = sx.size
+    den = math.sqrt(float(np.count_nonzero(sx)) * float(np.count_nonzero(sy)))
+    tau = float(np.dot(sx, sy)) / den if den > 0 and n0 else None
+    rx, ry = _avg_ranks(x), _avg_ranks(y)
+    rx -= rx.mean()
+    ry -= ry.mean()
+    d = math.sqrt(float(np.dot(rx, rx)) * float(np.dot(ry, ry)))
+    rho = float(np.dot(rx, ry)) / d if d > 0 else None
+    return tau, rho
 
 
 class _Positions:
@@ -104,10 +139,7 @@ def compare_scores(prev: Path, new: Path, k: int, extra_ks: tuple[int, ...] = ()
     rows += [(int(m[j]), int(j)) for j in tb if m[j] < 0 or not in_ta[m[j]]]
     sa = [float(a[o]) if o >= 0 else 0.0 for o, _ in rows]
     sb = [float(b[j]) if j >= 0 else 0.0 for _, j in rows]
-    tau = rho = None
-    if len(rows) > 1:
-        t_, r_ = float(stats.kendalltau(sa, sb).statistic), float(stats.spearmanr(sa, sb).statistic)
-        tau, rho = (t_ if math.isfinite(t_) else None), (r_ if math.isfinite(r_) else None)
+    tau, rho = correlations(np.array(sa), np.array(sb))
     pa_, pb_ = _Positions(a), _Positions(b)
     both = [(o, j, pa_.of(o), pb_.of(j)) for o, j in rows if o >= 0 and j >= 0]
 
