@@ -24,7 +24,12 @@ Run `shardrank demo` to see it all on an invented web crawl.
 
 
 class _Fmt(argparse.RawDescriptionHelpFormatter, argparse.ArgumentDefaultsHelpFormatter):
-    pass
+    """Keeps our examples' layout and shows real defaults (not "None" or "False")."""
+
+    def _get_help_string(self, action: argparse.Action) -> str | None:
+        if action.default in (None, False, [], argparse.SUPPRESS):
+            return action.help
+        return super()._get_help_string(action)
 
 
 def _common(p: argparse.ArgumentParser) -> None:
