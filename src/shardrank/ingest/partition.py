@@ -5,14 +5,16 @@ whose range ``lo..hi`` fits a direct table, this path then replaces DuckDB's joi
 and ORDER BY, which dominate a SQL build:
 
 1. scatter: stream (src, dst) batches out of DuckDB; mark every key present in a byte table;
-   drop self-loops if asked; append each edge, as two uint32 key offsets, to the spill file of
-   its destination key range (a counting sort of each batch: count, prefix sum, scatter).
+   drop self-loops if asked; append each edge, as its two key offsets packed in a uint64, to
+   the spill file of its destination key range (a counting sort of each batch: count, prefix
+   sum, scatter).
 2. ids: a running count over the presence table gives every key its id in numeric key order,
    the ids the SQL path gives.
-3. sort: for consecutive key ranges holding at most ``cap`` edges (the memory bound), pack
-   each edge as ``dst_id << 32 | src_id`` in a uint64, sort, drop duplicates, count degrees,
-   and append the result to one sorted spill file.
-4. write: with every in-degree known, stream the sorted edges into the StoreWriter.
+3. sort: for consecutive key ranges holding at most ``cap`` edges (the memory bound), turn
+   each edge into ``dst_id << 32 | src_id`` in place, sort, drop duplicates, count degrees,
+   and append the source ids (uint32) to one spill file, in (dst, src) order.
+4. write: with every in-degree known, stream the sources (and destinations rebuilt from the
+   in-degrees) into the StoreWriter.
 
 The result does not depend on batch order or thread count: step 3 sorts each range into the
 one canonical order. Weighted edges and ``--nodes`` tables take the SQL path.
@@ -43,10 +45,10 @@ from .tables import Columns, arrow_reader, sql_str
 
 MAX_SPILL_FILES = 256  # destination key ranges written in the scatter pass (open files)
 RESERVE_BYTES = 384 * 2**20  # interpreter, DuckDB's streaming buffers, one Arrow batch
-BYTES_PER_EDGE = 16  # peak while sorting a range: uint32 pair (8) + packed uint64 key (8)
+BYTES_PER_EDGE = 8  # while sorting, an edge is one uint64: packed key offsets, then ids, in place
+SORT_GROUP_EDGES = 1 << 25  # edges sorted at once at most (256 MiB): one buffer, reused
 MIN_CAP_EDGES = 1 << 20  # never sort fewer edges at once (16 MiB)
 MIN_EDGES_PER_SPILL = 1 << 16  # small inputs get few spill files
-_MASK32 = np.uint64(0xFFFFFFFF)
 
 
 @dataclass(frozen=True)
@@ -73,11 +75,11 @@ def scatter_batch(s, d, lo, span, shift, n_parts, drop_loops, present, out_pairs
     n_parts : int
     drop_loops : bool, leave out edges with ``s == d`` (their keys are still nodes)
     present : uint8[span], set to 1 for every key seen
-    out_pairs : uint32[2 m], receives (dst offset, src offset) pairs grouped by range
+    out_pairs : uint64[m], receives ``src offset << 32 | dst offset`` grouped by range
 
     Returns
     -------
-    int64[n_parts + 1] start of each range in ``out_pairs`` (in pairs), or int64[0] if a key
+    int64[n_parts + 1] start of each range in ``out_pairs``, or int64[0] if a key
     lies outside the range (the caller then measures the range and starts again).
     """
     m = s.shape[0]
@@ -102,8 +104,7 @@ def scatter_batch(s, d, lo, span, shift, n_parts, drop_loops, present, out_pairs
             continue
         p = b >> shift
         q = nxt[p]
-        out_pairs[2 * q] = b
-        out_pairs[2 * q + 1] = a
+        out_pairs[q] = (np.uint64(a) << np.uint64(32)) | np.uint64(b)
         nxt[p] = q + 1
     return starts
 
@@ -122,28 +123,42 @@ def number_keys(present, ids_out):  # pragma: no cover - jit
 
 
 @njit(parallel=True, cache=True)
-def pack_edges(pairs, ids, out):  # pragma: no cover - jit
-    """``out[k] = ids[dst] << 32 | ids[src]`` for the k-th (dst offset, src offset) pair."""
-    for k in prange(out.shape[0]):
-        out[k] = (np.uint64(ids[pairs[2 * k]]) << np.uint64(32)) | np.uint64(ids[pairs[2 * k + 1]])
+def pack_edges(buf, ids):  # pragma: no cover - jit
+    """Replace each ``src offset << 32 | dst offset`` in ``buf`` (uint64[m]) by
+    ``ids[dst] << 32 | ids[src]``, in place: sorting the result orders edges by (dst, src).
+    """
+    for k in prange(buf.shape[0]):
+        x = buf[k]
+        dst_off = x & np.uint64(0xFFFFFFFF)
+        src_off = x >> np.uint64(32)
+        buf[k] = (np.uint64(ids[dst_off]) << np.uint64(32)) | np.uint64(ids[src_off])
 
 
 @njit(cache=True)
-def dedupe_sorted(keys, in_deg, out_deg):  # pragma: no cover - jit
-    """Compact sorted packed edges in place (duplicates dropped); count degrees and self-loops.
+def dedupe_sorted(keys, in_deg, out_deg, src_out):  # pragma: no cover - jit
+    """Walk sorted packed edges ``dst_id << 32 | src_id``, skipping duplicates: count degrees
+    and self-loops, and write the source ids of the distinct edges, in order, to ``src_out``.
+
+    Parameters
+    ----------
+    keys : uint64[m], sorted
+    in_deg, out_deg : int64[N], incremented
+    src_out : uint32[>= m]
 
     Returns (number of distinct edges, number of distinct self-loops).
     """
     w = 0
     loops = 0
+    prev = np.uint64(0)
     for k in range(keys.shape[0]):
         x = keys[k]
-        if w > 0 and x == keys[w - 1]:
+        if k > 0 and x == prev:
             continue
-        keys[w] = x
-        w += 1
+        prev = x
         dd = x >> np.uint64(32)
         ss = x & np.uint64(0xFFFFFFFF)
+        src_out[w] = ss
+        w += 1
         in_deg[dd] += 1
         out_deg[ss] += 1
         if dd == ss:
@@ -217,27 +232,28 @@ def _scatter(con: duckdb.DuckDBPyConnection, plan: IntPlan, spill: Path, drop_lo
     """Pass over the edges: presence, and spill files by destination range. Returns the files,
     their edge counts and the shift that defines their ranges."""
     # about four ranges per sort group, so groups come out even when keys are skewed
-    want = max(1, min(MAX_SPILL_FILES, 4 * math.ceil(plan.n_rows / plan.cap_edges),
+    group = min(plan.cap_edges, SORT_GROUP_EDGES)
+    want = max(1, min(MAX_SPILL_FILES, 4 * math.ceil(plan.n_rows / group),
                       plan.n_rows // MIN_EDGES_PER_SPILL))
     shift = _shift_for(plan.span, want)
     n_parts = ((plan.span - 1) >> shift) + 1
-    paths = [spill / f"range-{p:04d}.u32" for p in range(n_parts)]
+    paths = [spill / f"range-{p:04d}.u64" for p in range(n_parts)]
     sizes = [0] * n_parts
     files = [open(p, "wb") for p in paths]
     done = 0
     try:
-        buf = np.empty(0, dtype=np.uint32)
+        buf = np.empty(0, dtype=np.uint64)
         for batch in arrow_reader(con, "SELECT s, d FROM clean", settings.BATCH_ROWS):
             s = batch.column(0).to_numpy()
             d = batch.column(1).to_numpy()
-            if buf.shape[0] < 2 * s.shape[0]:
-                buf = np.empty(2 * s.shape[0], dtype=np.uint32)
+            if buf.shape[0] < s.shape[0]:
+                buf = np.empty(s.shape[0], dtype=np.uint64)
             starts = scatter_batch(s, d, plan.lo, plan.span, shift, n_parts, drop_loops, present, buf)
             if starts.shape[0] == 0:
                 raise _OutOfRange
             for p in np.flatnonzero(np.diff(starts)).tolist():
                 a, b = int(starts[p]), int(starts[p + 1])
-                files[p].write(memoryview(buf[2 * a : 2 * b]).cast("B"))
+                files[p].write(memoryview(buf[a:b]).cast("B"))
                 sizes[p] += b - a
             done += s.shape[0]
             rep.progress("partitioning edges", done, plan.n_rows, "edges")
@@ -265,36 +281,38 @@ def _groups(sizes: list[int], cap: int) -> list[list[int]]:
     return out
 
 
-def _read_pairs(paths: list[Path], sizes: list[int]) -> np.ndarray:
-    pairs = np.empty(2 * sum(sizes), dtype=np.uint32)
+def _read_pairs(paths: list[Path], sizes: list[int], buf: np.ndarray) -> np.ndarray:
+    """Read the spill files into the front of ``buf`` (uint64, one pair per item); delete them."""
     pos = 0
     for path, n in zip(paths, sizes, strict=True):
         with open(path, "rb") as f:
-            got = f.readinto(memoryview(pairs[pos : pos + 2 * n]).cast("B"))
+            got = f.readinto(memoryview(buf[pos : pos + n]).cast("B"))
         if got != 8 * n:
             raise ShardrankError(f"internal error: {path} holds {got} bytes, expected {8 * n}")
-        pos += 2 * n
+        pos += n
         path.unlink()
-    return pairs
+    return buf[:pos]
 
 
-def _sort_ranges(paths: list[Path], sizes: list[int], ids: np.ndarray, cap: int, sorted_path: Path,
+def _sort_ranges(paths: list[Path], sizes: list[int], ids: np.ndarray, cap: int, sources_path: Path,
                  in_deg: np.ndarray, out_deg: np.ndarray, rep: Reporter) -> tuple[int, int]:
-    """Sort and deduplicate range groups in order into ``sorted_path``; (edges, self-loops)."""
-    groups = _groups(sizes, cap)
+    """Sort and deduplicate range groups in order; append their source ids (uint32) to
+    ``sources_path`` (the destinations follow from the in-degrees). Returns (edges, self-loops)."""
+    groups = _groups(sizes, min(cap, SORT_GROUP_EDGES))
+    # one buffer for every group: small is cache-friendly, and fresh memory is slow to touch on VMs
+    most = max((sum(sizes[p] for p in g) for g in groups), default=0)
+    buf = np.empty(most, dtype=np.uint64)
+    src = np.empty(most, dtype=np.uint32)
     n_edges = n_loops = 0
-    with open(sorted_path, "wb") as out:
+    with open(sources_path, "wb") as out:
         for g, members in enumerate(groups):
-            pairs = _read_pairs([paths[p] for p in members], [sizes[p] for p in members])
-            keys = np.empty(pairs.shape[0] // 2, dtype=np.uint64)
-            pack_edges(pairs, ids, keys)
-            del pairs
+            keys = _read_pairs([paths[p] for p in members], [sizes[p] for p in members], buf)
+            pack_edges(keys, ids)
             keys.sort()
-            n, loops = dedupe_sorted(keys, in_deg, out_deg)
-            out.write(memoryview(keys[:n]).cast("B"))
+            n, loops = dedupe_sorted(keys, in_deg, out_deg, src)
+            out.write(memoryview(src[:n]).cast("B"))
             n_edges += int(n)
             n_loops += int(loops)
-            del keys
             rep.progress("sorting and merging duplicates", g + 1, len(groups), "ranges")
     return n_edges, n_loops
 
@@ -312,17 +330,24 @@ def _write_nodes(path: Path, present: np.ndarray, lo: int, n: int) -> None:
                           row_group_size=step)
 
 
-def _stream_sorted(path: Path, w: StoreWriter, n_edges: int, rep: Reporter) -> None:
+def _stream_sorted(path: Path, w: StoreWriter, in_deg: np.ndarray, n_edges: int, rep: Reporter) -> None:
+    """Feed the writer batches of (dst, src): sources from ``path``, destinations rebuilt from
+    the in-degrees (row r owns edges ``ends[r] - in_deg[r] .. ends[r] - 1``)."""
+    ends = np.cumsum(in_deg)
     step = settings.BATCH_ROWS
-    done = 0
     with open(path, "rb") as f:
-        while done < n_edges:
-            k = np.fromfile(f, dtype=np.uint64, count=min(step, n_edges - done))
-            if k.shape[0] == 0:
-                raise ShardrankError(f"internal error: {path} ended after {done} of {n_edges} edges")
-            w.add_edges((k >> np.uint64(32)).astype(np.int64), (k & _MASK32).astype(np.uint32), None)
-            done += k.shape[0]
-            rep.progress("writing shards", done, n_edges, "edges", block=w._cur)
+        for e0 in range(0, n_edges, step):
+            e1 = min(e0 + step, n_edges)
+            src = np.fromfile(f, dtype=np.uint32, count=e1 - e0)
+            if src.shape[0] != e1 - e0:
+                raise ShardrankError(f"internal error: {path} ended after {e0 + src.shape[0]} of {n_edges} edges")
+            ra = int(np.searchsorted(ends, e0, side="right"))  # first row ending after e0
+            rb = int(np.searchsorted(ends, e1 - 1, side="right"))  # the row holding edge e1 - 1
+            first = np.maximum(ends[ra : rb + 1] - in_deg[ra : rb + 1], e0)
+            last = np.minimum(ends[ra : rb + 1], e1)
+            dst = np.repeat(np.arange(ra, rb + 1, dtype=np.int64), last - first)
+            w.add_edges(dst, src, None)
+            rep.progress("writing shards", e1, n_edges, "edges", block=w._cur)
 
 
 def build_integer(
@@ -367,7 +392,7 @@ def build_integer(
         in_deg = np.zeros(n, dtype=np.int64)
         out_deg = np.zeros(n, dtype=np.int64)
         rep.event("phase", "sorting edges and merging duplicates...", phase="sort")
-        sorted_path = spill / "sorted.u64"
+        sorted_path = spill / "sources.u32"
         n_edges, n_loops = _sort_ranges(paths, sizes, ids, plan.cap_edges, sorted_path, in_deg, out_deg, rep)
         del ids
         w = StoreWriter(tmp, n, block_nodes, f"<u{width // 8}", False)
@@ -376,7 +401,7 @@ def build_integer(
         w.write_array(layout.IN_DEGREE, in_deg)
         w.write_array(layout.OUT_WEIGHT, out_deg.astype(np.float64))
         w.begin_shards(in_deg)
-        _stream_sorted(sorted_path, w, n_edges, rep)
+        _stream_sorted(sorted_path, w, in_deg, n_edges, rep)
         w.finish_shards()
         if w.n_edges != n_edges:
             raise ShardrankError(f"internal error: wrote {w.n_edges} edges, expected {n_edges}")
