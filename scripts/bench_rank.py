@@ -1,0 +1,263 @@
+#!/usr/bin/env python3
+"""Benchmark `shardrank rank` against a scipy.sparse CSR power iteration on the same store.
+
+Every contender runs in its own child process (numba's thread count is per process, and each
+child's peak RSS is its own):
+
+* ``shardrank power|gauss-seidel, T threads`` - ``shardrank.rank(STORE, ...)`` (the code
+  behind `shardrank rank`) to --tol; a reporter records the time of every iteration, so the
+  median seconds per iteration is per step kind (power steps, Gauss-Seidel sweeps).
+* ``scipy``  - the same PageRank definition (dead ends to teleport, uniform teleport, the same
+  stopping rule ``d/(1-d) * ||G x - x||_1 <= tol``) as a scipy.sparse CSR matrix-vector power
+  iteration, the matrix loaded from the same store (int32 indices, float64 data).
+* ``memcap`` (``--memcap SIZE``) - `shardrank rank` under ../shared/tools/memcap with a cap
+  below the store's size on disk: it must finish; its wall time is compared with the
+  uncapped run.
+
+Targets (issue 3): median seconds per iteration <= 0.3x scipy's; Gauss-Seidel reaches --tol
+in <= 0.6x the power method's iterations; rank peak memory <= 3 x 8N bytes + 300 MB, flat in
+the edge count.
+
+usage: scripts/bench_rank.py /work/bench-data/s22 /work/bench-data/s23 --memcap 300M
+       scripts/bench_rank.py STORE --sweep-chunks 1024,4096,16384   (Gauss-Seidel chunk sizes)
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import statistics
+import sys
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from bench_common import GiB, MiB, PYTHON, REPO, Measured, dir_bytes, machine_facts, run_measured, table  # noqa: E402
+
+MEMCAP = REPO.parent / "shared" / "tools" / "memcap"
+SHARDRANK = str(Path(PYTHON).with_name("shardrank"))
+
+
+# --- children -------------------------------------------------------------------------------
+def child_shardrank(store: Path, run: Path, method: str, threads: int, tol: float, row_chunk: int | None,
+                    max_iter: int) -> None:
+    import shardrank
+    from shardrank import settings
+    from shardrank.progress import Reporter
+    from shardrank.solve.options import RankOptions
+
+    if row_chunk:
+        settings.ROW_CHUNK = row_chunk  # the engine reads it when it starts
+
+    class Clock(Reporter):
+        def __init__(self) -> None:
+            self.stamps: list[tuple[float, float]] = []
+            self.start = (0.0, 0.0)
+
+        def event(self, kind: str, message: str, **fields: object) -> None:
+            if message.startswith("ranking "):
+                self.start = (time.perf_counter(), time.process_time())
+
+        def progress(self, phase: str, done: float, total: float | None, unit: str = "", **fields: object) -> None:
+            if phase == "ranking":
+                self.stamps.append((time.perf_counter(), time.process_time()))
+
+    clock = Clock()
+    shutil.rmtree(run, ignore_errors=True)
+    o = RankOptions(method=method, threads=threads, tol=tol, max_iter=max_iter, checkpoint_seconds=1e9)
+    t0 = time.perf_counter()
+    res = shardrank.rank(store, run, o, clock)
+    wall = time.perf_counter() - t0
+    doc = json.loads((run / "run.json").read_text())
+    steps = doc["history"]["step"]
+    pairs = list(zip([clock.start, *clock.stamps[:-1]], clock.stamps, strict=True))
+    by_kind: dict[str, list[float]] = {}
+    cpu_kind: dict[str, list[float]] = {}
+    for kind, (a, b) in zip(steps, pairs, strict=True):
+        by_kind.setdefault(kind, []).append(b[0] - a[0])
+        cpu_kind.setdefault(kind, []).append(b[1] - a[1])
+    resid = doc["history"]["residual"]
+    gs = [x for x, k in zip(resid, steps, strict=True) if k == "gauss-seidel"]
+    seq = gs if len(gs) >= 3 else resid
+    # geometric mean of the change's ratio from one step to the next (the convergence rate)
+    rate = (seq[-1] / seq[1]) ** (1 / (len(seq) - 2)) if len(seq) >= 3 and seq[1] > 0 else float("nan")
+    print(json.dumps({
+        "iterations": doc["iterations"], "converged": doc["converged"], "error_bound": doc["error_bound"],
+        "wall": wall, "iterate_seconds": doc["timings"]["iterate_seconds"],
+        "median": {k: statistics.median(v) for k, v in by_kind.items()},
+        "median_cpu": {k: statistics.median(v) for k, v in cpu_kind.items()},
+        "steps": {k: len(v) for k, v in by_kind.items()}, "rate": rate, "residuals": resid,
+        "n_nodes": doc["n_nodes"], "n_edges": doc["n_edges"], "threads": doc.get("threads"),
+        "scores_sha256": doc["scores"]["sha256"], "converged_flag": bool(res.converged),
+    }))
+
+
+def child_scipy(store: Path, tol: float, damping: float, max_iter: int) -> None:
+    import numpy as np
+    import scipy.sparse as sp
+
+    from shardrank.store.reader import StoreReader
+
+    reader = StoreReader.open(store)
+    n = reader.n_nodes
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    indices = np.empty(reader.n_edges, dtype=np.int32)
+    pos = 0
+    for i, b in enumerate(reader.manifest.blocks):
+        sh = reader.shard(i)
+        indptr[b.first_node + 1 : b.first_node + b.n_nodes + 1] = np.asarray(sh.offsets[1:]) + pos
+        indices[pos : pos + b.n_edges] = sh.sources
+        pos += b.n_edges
+    # rows = destinations, as in the store; data = 1 (unweighted) so A @ (r / outdeg) gathers
+    a = sp.csr_matrix((np.ones(reader.n_edges), indices, indptr), shape=(n, n))
+    w = np.array(reader.out_weight())
+    dead = w == 0
+    inv = np.zeros(n)
+    np.divide(1.0, w, out=inv, where=~dead)
+    r = np.full(n, 1.0 / n)
+    gain = damping / (1 - damping)
+    times: list[float] = []
+    t_start = time.perf_counter()
+    bound = float("inf")
+    k = 0
+    for k in range(1, max_iter + 1):
+        t = time.perf_counter()
+        x = r * inv
+        dead_mass = float(r[dead].sum())
+        y = a @ x
+        y *= damping
+        y += (damping * dead_mass + 1 - damping) / n
+        change = float(np.abs(y - r).sum())
+        y /= y.sum()
+        r = y
+        times.append(time.perf_counter() - t)
+        bound = gain * change
+        if bound <= tol:
+            break
+    print(json.dumps({"iterations": k, "converged": bound <= tol, "error_bound": bound,
+                      "wall": time.perf_counter() - t_start, "median": {"power": statistics.median(times)},
+                      "n_nodes": n, "n_edges": reader.n_edges}))
+
+
+# --- driver ---------------------------------------------------------------------------------
+def _child(args: list[str], env: dict[str, str] | None = None, name: str = "") -> tuple[Measured, dict]:
+    m = run_measured(name, [PYTHON, __file__, *args], env=env).check()
+    return m, json.loads(m.stdout.strip().splitlines()[-1])
+
+
+def _rank_child(store: Path, work: Path, method: str, threads: int, tol: float, max_iter: int,
+                row_chunk: int | None = None) -> tuple[Measured, dict]:
+    args = ["--child", "shardrank", str(store), "--run", str(work / "run"), "--method", method,
+            "--threads", str(threads), "--tol", str(tol), "--max-iter", str(max_iter)]
+    if row_chunk:
+        args += ["--row-chunk", str(row_chunk)]
+    # NUMBA_NUM_THREADS caps the pool, so a 1-thread run has no idle workers either
+    return _child(args, env={"NUMBA_NUM_THREADS": str(threads)}, name=f"{method}/{threads}")
+
+
+def bench_store(store: Path, a: argparse.Namespace) -> dict[str, object]:
+    print(f"\n== {store} ==", flush=True)
+    res: dict[str, tuple[Measured, dict]] = {}
+    for method in ("power", "gauss-seidel"):
+        for threads in a.threads:
+            key = f"shardrank {method} {threads}t"
+            res[key] = _rank_child(store, a.work, method, threads, a.tol, a.max_iter)
+            m, d = res[key]
+            print(f"[{time.strftime('%H:%M:%S')}] {key}: {d['iterations']} it, {d['wall']:.1f} s, "
+                  f"median {d['median']}, peak {m.peak_bytes / MiB:.0f} MiB  (load {os.getloadavg()[0]:.2f})",
+                  flush=True)
+    res["scipy"] = _child(["--child", "scipy", str(store), "--tol", str(a.tol), "--max-iter", str(a.max_iter)],
+                          env={"OMP_NUM_THREADS": "1"}, name="scipy")
+    m, d = res["scipy"]
+    print(f"[{time.strftime('%H:%M:%S')}] scipy: {d['iterations']} it, {d['wall']:.1f} s, median {d['median']}, "
+          f"peak {m.peak_bytes / MiB:.0f} MiB", flush=True)
+    n_nodes, n_edges = d["n_nodes"], d["n_edges"]
+    sp_it = d["median"]["power"]
+    rows = []
+    for key, (m, d) in res.items():
+        med = d["median"].get("power", float("nan"))
+        sweep = d["median"].get("gauss-seidel")
+        rows.append([key, str(d["iterations"]), f"{d['wall']:.1f}", f"{med:.3f}",
+                     f"{sweep:.3f}" if sweep else "-", f"{n_edges / (sweep or med) / 1e6:.0f}",
+                     f"{(sweep or med) / sp_it:.2f}", f"{m.peak_bytes / MiB:.0f}"])
+    print()
+    print(f"{n_nodes:,} nodes, {n_edges:,} edges, {dir_bytes(store) / GiB:.2f} GiB on disk; tol {a.tol:g}")
+    print(table(rows, ["contender", "iters", "wall s", "s/power step", "s/GS sweep", "Medge/s",
+                       "x scipy", "peak MiB"]))
+    top = max(a.threads)
+    p_it = res[f"shardrank power {top}t"][1]["iterations"]
+    g_it = res[f"shardrank gauss-seidel {top}t"][1]["iterations"]
+    ratio = res[f"shardrank power {top}t"][1]["median"]["power"] / sp_it
+    limit = 24 * n_nodes + 300 * 10**6
+    peak = max(m.peak_bytes for k, (m, _d) in res.items() if k.startswith("shardrank"))
+    same = {d["scores_sha256"] for k, (_m, d) in res.items() if k.startswith("shardrank power")}
+    print()
+    print(f"target s/iteration <= 0.3x scipy ({top} threads, power): {ratio:.2f}x  {'MET' if ratio <= 0.3 else 'MISSED'}")
+    print(f"target GS iterations <= 0.6x power: {g_it}/{p_it} = {g_it / p_it:.2f}  {'MET' if g_it <= 0.6 * p_it else 'MISSED'}")
+    print(f"target peak <= 24 N + 300 MB = {limit / MiB:.0f} MiB: {peak / MiB:.0f} MiB  {'MET' if peak <= limit else 'MISSED'}")
+    print(f"power scores identical at {a.threads} threads: {len(same) == 1}")
+    out: dict[str, object] = {"n_nodes": n_nodes, "n_edges": n_edges, "peak": peak, "limit": limit}
+    if a.memcap:
+        wall_free = res[f"shardrank power {top}t"][1]["wall"]
+        cmd = [str(MEMCAP), a.memcap, SHARDRANK, "rank", str(store), "--out", str(a.work / "capped"),
+               "--method", "power", "--threads", str(top), "--tol", str(a.tol), "--overwrite", "-q"]
+        m = run_measured("memcap", cmd)
+        shutil.rmtree(a.work / "capped", ignore_errors=True)
+        line = [x for x in m.stderr.splitlines() if x.startswith("memcap:")]
+        print(f"memcap {a.memcap} (store {dir_bytes(store) / MiB:.0f} MiB on disk): exit {m.returncode}, "
+              f"{m.seconds:.1f} s vs {wall_free:.1f} s uncapped in-process ({m.seconds / wall_free:.2f}x); "
+              f"{line[-1] if line else m.stderr[-500:]}")
+    return out
+
+
+def sweep_chunks(store: Path, a: argparse.Namespace) -> None:
+    print(f"\n== Gauss-Seidel row chunk sweep on {store} ==", flush=True)
+    rows = []
+    for chunk in a.sweep_chunks:
+        for method in ("power", "gauss-seidel") if chunk == a.sweep_chunks[0] else ("gauss-seidel",):
+            m, d = _rank_child(store, a.work, method, max(a.threads), a.tol, a.max_iter, row_chunk=chunk)
+            med = d["median"]
+            cpu = d["median_cpu"]
+            rows.append([method, str(chunk), str(d["iterations"]), f"{d['rate']:.4f}", f"{d['wall']:.1f}",
+                         f"{med.get('gauss-seidel', med.get('power')):.3f}",
+                         f"{cpu.get('gauss-seidel', cpu.get('power')):.3f}"])
+            print(f"  {rows[-1]}", flush=True)
+    print(table(rows, ["method", "row chunk", "iters", "rate/step", "wall s", "s/step", "cpu s/step"]))
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    p.add_argument("stores", nargs="+", type=Path)
+    p.add_argument("--threads", type=lambda s: [int(x) for x in s.split(",")], default=[1, 2])
+    p.add_argument("--tol", type=float, default=1e-9)
+    p.add_argument("--max-iter", type=int, default=1000)
+    p.add_argument("--work", type=Path, default=Path("/work/bench-data/rank-work"))
+    p.add_argument("--memcap", metavar="SIZE", help="also rank under memcap with this cap (e.g. 300M)")
+    p.add_argument("--sweep-chunks", type=lambda s: [int(x) for x in s.split(",")],
+                   help="instead: Gauss-Seidel iterations and time for these ROW_CHUNK values")
+    p.add_argument("--child", choices=("shardrank", "scipy"), help=argparse.SUPPRESS)
+    p.add_argument("--run", type=Path, help=argparse.SUPPRESS)
+    p.add_argument("--method", default="power", help=argparse.SUPPRESS)
+    p.add_argument("--row-chunk", type=int, help=argparse.SUPPRESS)
+    a = p.parse_args(argv)
+    if a.child == "shardrank":
+        child_shardrank(a.stores[0], a.run, a.method, a.threads[0], a.tol, a.row_chunk, a.max_iter)
+        return 0
+    if a.child == "scipy":
+        child_scipy(a.stores[0], a.tol, 0.85, a.max_iter)
+        return 0
+    a.work.mkdir(parents=True, exist_ok=True)
+    print(f"machine: {machine_facts()}")
+    for store in a.stores:
+        if a.sweep_chunks:
+            sweep_chunks(store, a)
+        else:
+            bench_store(store, a)
+    shutil.rmtree(a.work, ignore_errors=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
