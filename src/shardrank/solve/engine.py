@@ -8,6 +8,7 @@ two methods; the driver, the convergence test and the checkpoints are shared.
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Callable
 from pathlib import Path
 from typing import Protocol
@@ -18,6 +19,7 @@ import numpy as np
 from .. import settings
 from ..errors import BadInputError
 from ..kernels import gather_block, gather_block_fresh, n_chunks, scale_range
+from ..store import layout
 from ..store.reader import StoreReader
 from .options import RankOptions
 from .problem import Problem
@@ -71,9 +73,27 @@ class LocalEngine:
         scale_range(r, self.w_out, b.first_node, b.first_node + b.n_nodes, self.chunk, self.s, part)
         return math.fsum(part)
 
+    def _prefetch(self, i: int) -> None:
+        """Ask the OS to start reading block ``i``'s shard files now, so that when the store does
+        not fit in the page cache the disk reads overlap the gather of the block before it."""
+        names = [layout.shard_offsets(i), layout.shard_sources(i)]
+        if self.reader.weighted:
+            names.append(layout.shard_weights(i))
+        for name in names:
+            try:
+                fd = os.open(self.reader.path / name, os.O_RDONLY)
+            except OSError:
+                return  # not a local file (yet): the reader fetches it when the block is due
+            try:
+                os.posix_fadvise(fd, 0, 0, os.POSIX_FADV_WILLNEED)
+            finally:
+                os.close(fd)
+
     def _gather(self, r: np.ndarray, i: int, dead_mass: float, fresh: bool = False) -> float:
         b = self.blocks[i]
         sh = self.reader.shard(i)
+        if hasattr(os, "posix_fadvise"):
+            self._prefetch((i + 1) % len(self.blocks))  # the last block's successor is the next sweep's first
         add_u, add_t = self.problem.constants(dead_mass)
         tele = self.problem.teleport
         v = self._no_v if tele.uniform else tele.fill_block(b.first_node, b.n_nodes, self._v_buf)
