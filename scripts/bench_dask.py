@@ -169,11 +169,8 @@ def main() -> int:
     rows = []
     print(_load(), flush=True)
     try:
-        steady = (
-            _steady(a.store, cluster.scheduler_address, out, a.methods.split(","), a.steps)
-            if a.steps
-            else []
-        )
+        # the runs come first: a child process reports the larger of its own peak and this
+        # process's size when it was forked, so this process must still be small then
         for method in [] if a.no_runs else a.methods.split(","):
             loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
             client.restart()
@@ -192,6 +189,11 @@ def main() -> int:
             rows += [("local", method, loc), (f"dask x{a.workers}", method, dk)]
             for name, _, r in rows[-2:]:
                 print(json.dumps({"engine": name, "method": method, **r}), flush=True)
+        steady = (
+            _steady(a.store, cluster.scheduler_address, out, a.methods.split(","), a.steps)
+            if a.steps
+            else []
+        )
     finally:
         client.close()
         cluster.close()

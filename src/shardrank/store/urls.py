@@ -136,10 +136,12 @@ def describe(where: str | os.PathLike[str]) -> str:
 
 # -- writing a store to a URL ------------------------------------------------------------------
 def check_writable(dest: Location, overwrite: bool) -> None:
-    """Refuse early when a store is already at ``dest`` and ``overwrite`` is off."""
-    if not overwrite and exists(dest.child(layout.MANIFEST)):
+    """Refuse early when anything is at ``dest`` (a store, half an upload, other files) and
+    ``overwrite`` is off, as a local build refuses an existing directory."""
+    if not overwrite and exists(dest):
+        what = "a store" if exists(dest.child(layout.MANIFEST)) else "files (not a store)"
         raise BadInputError(
-            f"{dest} already holds a store",
+            f"{dest} already holds {what}",
             hint="pass --overwrite to replace it, or pick another --out",
         )
 
