@@ -85,16 +85,29 @@ def parse_overlap_guard(text: str) -> tuple[int, float]:
 
 
 def compare_with_previous(prev: Path, new: Path, overlap_k: int | None) -> dict[str, Any]:
-    """The comparison of two runs by key, for the summary line and the guards.
+    """The comparison of two runs by key (results.compare), trimmed for the summary line.
 
-    Same figures and definitions as :func:`shardrank.results.compare.compare_runs` (top
-    ``settings.COMPARE_K`` for the correlations and movers; the overlap also at ``overlap_k``),
-    computed from arrays (see refresh/comparison.py; about 4x faster on a 2.4M-node store).
+    Correlations and movers over the top ``settings.COMPARE_K``; the overlap also at
+    ``overlap_k`` (the --min-overlap guard), with a second call when that K is not reported.
     """
-    from .comparison import compare_scores
+    from ..results.compare import compare_runs
 
-    c = compare_scores(prev, new, settings.COMPARE_K, (overlap_k,) if overlap_k else ())
-    return {"run": str(prev), **c}
+    c = compare_runs(prev, new, k=settings.COMPARE_K)
+    overlap = dict(c["overlap"])
+    if overlap_k is not None and str(overlap_k) not in overlap:
+        overlap[str(overlap_k)] = compare_runs(prev, new, k=overlap_k)["overlap"][str(overlap_k)]
+    return {
+        "run": str(prev),
+        "l1": c["l1"],
+        "max_abs_diff": c.get("max_abs_diff"),
+        "kendall_tau": c["kendall_tau"],
+        "spearman_rho": c["spearman_rho"],
+        "overlap": overlap,
+        "new_keys": c["new_keys"],
+        "vanished_keys": c["vanished_keys"],
+        "risers": c["risers"][:3],
+        "fallers": c["fallers"][:3],
+    }
 
 
 def check_guards(
