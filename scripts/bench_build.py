@@ -3,7 +3,11 @@
 
 Contenders, each in its own child process (wall time and peak RSS of that process):
 
-* ``shardrank``  - ``shardrank build EDGES --out STORE --memory M --threads T``
+* ``shardrank``  - ``shardrank build EDGES --out STORE --memory M --threads T`` (integer keys
+                   in a compact range take the numba counting-sort path, ingest/partition.py)
+* ``shardrank-sql`` - the same command with the counting-sort path switched off, so the
+                   store is built by DuckDB SQL (join, GROUP BY, ORDER BY): the path string
+                   keys, weights and --nodes tables take, and the build before partition.py
 * ``duckdb``     - DuckDB alone doing the same normalisation: ids for the keys in numeric
                    order, duplicates merged, edges sorted by (destination, source), written
                    as Parquet (nodes and edges), with the same memory limit, threads and spill
@@ -29,7 +33,8 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_common import GiB, MiB, PYTHON, Measured, dir_bytes, fresh_dir, machine_facts, run_measured, table  # noqa: E402
+from bench_common import (GiB, MiB, PYTHON, Measured, dir_bytes, fresh_dir, machine_facts,  # noqa: E402
+                          refuse_recursion, run_measured, table)
 
 SHARDRANK = str(Path(PYTHON).with_name("shardrank"))
 
@@ -117,18 +122,28 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--memory", default="4GB", help="memory budget for shardrank and DuckDB")
     p.add_argument("--threads", type=int, default=2)
     p.add_argument("--work", type=Path, default=Path("/work/bench-data/work"), help="scratch directory")
-    p.add_argument("--only", action="append", choices=("shardrank", "duckdb", "in-memory"),
+    p.add_argument("--only", action="append", choices=("shardrank", "shardrank-sql", "duckdb", "in-memory"),
                    help="run only these contenders (repeatable)")
     p.add_argument("--store", type=Path, help="keep shardrank's store here (default: scratch)")
     p.add_argument("--contender", help=argparse.SUPPRESS)
+    p.add_argument("--cli-json", help=argparse.SUPPRESS)
     a = p.parse_args(argv)
     memory = parse_size(a.memory)
+    refuse_recursion(a.contender is not None)
+    if a.contender not in (None, "duckdb", "in-memory", "shardrank-sql"):
+        p.error(f"unknown contender {a.contender!r}")
     if a.contender == "duckdb":
         contender_duckdb(a.edges, a.work, memory, a.threads)
         return 0
     if a.contender == "in-memory":
         contender_in_memory(a.edges)
         return 0
+    if a.contender == "shardrank-sql":
+        from shardrank.cli.main import main as cli_main
+        from shardrank.ingest import build
+
+        build.plan_integer_build = lambda *args, **kw: None  # type: ignore[assignment]
+        return cli_main(json.loads(a.cli_json))
 
     which = a.only or ["shardrank", "duckdb", "in-memory"]
     raw_bytes = dir_bytes(a.edges)
@@ -139,10 +154,14 @@ def main(argv: list[str] | None = None) -> int:
     store = a.store or a.work / "store"
     for name in which:
         t0 = time.strftime("%H:%M:%S")
-        if name == "shardrank":
+        if name in ("shardrank", "shardrank-sql"):
             fresh_dir(a.work)
-            cmd = [SHARDRANK, "build", str(a.edges), "--out", str(store), "--memory", a.memory,
-                   "--threads", str(a.threads), "--overwrite", "--log-format", "json"]
+            args = ["build", str(a.edges), "--out", str(store), "--memory", a.memory,
+                    "--threads", str(a.threads), "--overwrite", "--log-format", "json"]
+            if name == "shardrank":
+                cmd = [SHARDRANK, *args]
+            else:
+                cmd = [PYTHON, __file__, str(a.edges), "--contender", "shardrank-sql", "--cli-json", json.dumps(args)]
             m = run_measured(name, cmd).check()
             built = [json.loads(x) for x in m.stderr.splitlines() if '"built"' in x]
             extra = built[-1]["message"] if built else ""

@@ -18,6 +18,13 @@ REPO = Path(__file__).resolve().parent.parent
 PYTHON = sys.executable
 GiB = 2**30
 MiB = 2**20
+CHILD_FLAG = "SHARDRANK_BENCH_CHILD"
+
+
+def refuse_recursion(is_contender: bool) -> None:
+    """Stop a benchmark started inside one of its own children (a contender that lost its flag)."""
+    if os.environ.get(CHILD_FLAG) and not is_contender:
+        raise SystemExit("bench: refusing to run the whole benchmark inside a measured child")
 
 
 @dataclass
@@ -42,6 +49,7 @@ def run_measured(name: str, cmd: list[str], env: dict[str, str] | None = None,
     """Run ``cmd``; return its wall time and peak RSS (from wait4's rusage of that child)."""
     full_env = dict(os.environ)
     full_env.update(env or {})
+    full_env[CHILD_FLAG] = "1"  # a child that is not a contender refuses to start (no recursion)
     t0 = time.perf_counter()
     p = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=full_env, cwd=cwd,
                          text=True)

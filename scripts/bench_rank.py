@@ -38,7 +38,8 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_common import GiB, MiB, PYTHON, REPO, Measured, dir_bytes, machine_facts, run_measured, table  # noqa: E402
+from bench_common import (GiB, MiB, PYTHON, REPO, Measured, dir_bytes, machine_facts,  # noqa: E402
+                          refuse_recursion, run_measured, table)
 
 MEMCAP = REPO.parent / "shared" / "tools" / "memcap"
 SHARDRANK = str(Path(PYTHON).with_name("shardrank"))
@@ -297,6 +298,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--prealloc", action="store_true", help=argparse.SUPPRESS)
     p.add_argument("--compare", type=Path, help=argparse.SUPPRESS)
     a = p.parse_args(argv)
+    refuse_recursion(a.child is not None)
     if a.child == "shardrank":
         child_shardrank(a.stores[0], a.run, a.method, a.threads[0], a.tol, a.row_chunk, a.max_iter)
         return 0
