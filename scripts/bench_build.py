@@ -145,7 +145,7 @@ def main(argv: list[str] | None = None) -> int:
         build.plan_integer_build = lambda *args, **kw: None  # type: ignore[assignment]
         return cli_main(json.loads(a.cli_json))
 
-    which = a.only or ["shardrank", "duckdb", "in-memory"]
+    which = a.only or ["shardrank", "shardrank-sql", "duckdb", "in-memory"]
     raw_bytes = dir_bytes(a.edges)
     print(f"input: {a.edges} ({raw_bytes / GiB:.2f} GiB of Parquet)")
     print(f"machine: {machine_facts()}")

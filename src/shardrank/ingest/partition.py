@@ -45,9 +45,10 @@ from .tables import Columns, arrow_reader, sql_str
 
 MAX_SPILL_FILES = 256  # destination key ranges written in the scatter pass (open files)
 RESERVE_BYTES = 384 * 2**20  # interpreter, DuckDB's streaming buffers, one Arrow batch
-BYTES_PER_EDGE = 8  # while sorting, an edge is one uint64: packed key offsets, then ids, in place
+BYTES_PER_EDGE = 12  # while sorting: the edge as one uint64 (packed in place) + its uint32 source out
+BYTES_PER_KEY = 29  # presence (1) + id (4) per key of the range; degrees and their running sum (24) per node
 SORT_GROUP_EDGES = 1 << 25  # edges sorted at once at most (256 MiB): one buffer, reused
-MIN_CAP_EDGES = 1 << 20  # never sort fewer edges at once (16 MiB)
+MIN_CAP_EDGES = 1 << 20  # a budget that cannot sort this many edges at once takes the SQL path
 MIN_EDGES_PER_SPILL = 1 << 16  # small inputs get few spill files
 
 
@@ -200,10 +201,10 @@ def _plan_for(lo: int, hi: int, n_rows: int, memory: int) -> IntPlan | None:
     span = hi - lo + 1
     if span > 2**32:
         return None
-    fixed = 5 * span + 16 * span + RESERVE_BYTES  # presence + ids; two degree arrays (N <= span)
-    if fixed > memory // 2:
-        return None
-    cap = max((memory - fixed) // BYTES_PER_EDGE, MIN_CAP_EDGES)
+    fixed = BYTES_PER_KEY * span + RESERVE_BYTES  # N <= span
+    if fixed + BYTES_PER_EDGE * MIN_CAP_EDGES > memory:
+        return None  # the direct tables do not fit the budget: the SQL path spills instead
+    cap = (memory - fixed) // BYTES_PER_EDGE
     return IntPlan(lo=lo, span=span, n_rows=n_rows, cap_edges=int(cap), memory=memory)
 
 
