@@ -28,6 +28,7 @@ METHOD = "gauss-seidel"  # "power" or "gauss-seidel"; see docs/performance.md
 DEAD_ENDS = "teleport"  # "teleport" (strongly preferential) or "uniform" (weakly preferential)
 CHECKPOINT_SECONDS = 60.0  # seconds between checkpoints when --checkpoint-every is not given
 CHECKPOINTS_KEPT = 2  # newest checkpoints kept in RUN/checkpoints
+MAX_OPEN_SHARD_FILES = 512  # shard mappings kept open across iterations (one descriptor each)
 ROW_CHUNK = 4096  # destination rows per parallel work item inside a block (fixed: determinism)
 MASS_TOLERANCE = 1e-12  # |sum(scores) - 1| allowed after every iteration
 

@@ -20,7 +20,7 @@ from .. import settings
 from ..errors import BadInputError
 from ..kernels import gather_block, gather_block_fresh, n_chunks, scale_range
 from ..store import layout
-from ..store.reader import StoreReader
+from ..store.reader import Shard, StoreReader
 from .options import RankOptions
 from .problem import Problem
 
@@ -66,6 +66,19 @@ class LocalEngine:
         self._no_w = np.empty(0, dtype=np.float64)
         self._dead_parts = [np.zeros(n_chunks(b.n_nodes, self.chunk)) for b in self.blocks]
         self._res_parts = [np.zeros(n_chunks(b.n_nodes, self.chunk)) for b in self.blocks]
+        # Keep shard mappings open across iterations when that costs few file descriptors
+        # (each mapping holds one): reopening them every sweep dominated small-block runs.
+        files = 3 if reader.weighted else 2
+        self._keep_shards = len(self.blocks) * files <= settings.MAX_OPEN_SHARD_FILES
+        self._shards: dict[int, Shard] = {}
+
+    def _shard(self, i: int) -> Shard:
+        if not self._keep_shards:
+            return self.reader.shard(i)
+        sh = self._shards.get(i)
+        if sh is None:
+            sh = self._shards[i] = self.reader.shard(i)
+        return sh
 
     def _scale_block(self, r: np.ndarray, i: int) -> float:
         b = self.blocks[i]
@@ -91,7 +104,7 @@ class LocalEngine:
 
     def _gather(self, r: np.ndarray, i: int, dead_mass: float, fresh: bool = False) -> float:
         b = self.blocks[i]
-        sh = self.reader.shard(i)
+        sh = self._shard(i)
         if hasattr(os, "posix_fadvise"):
             self._prefetch((i + 1) % len(self.blocks))  # the last block's successor is the next sweep's first
         add_u, add_t = self.problem.constants(dead_mass)
@@ -132,6 +145,7 @@ class LocalEngine:
         # results, so the run's peak memory is the iteration's, not the iteration's plus output
         self.s = np.empty(0, dtype=np.float64)
         self.w_out = np.empty(0, dtype=np.float64)
+        self._shards.clear()
 
 
 EngineFactory = Callable[[StoreReader, Problem, RankOptions, Path], Engine]
