@@ -118,3 +118,21 @@ def test_wide_key_range_takes_the_sql_path(tmp_path: Path, monkeypatch: pytest.M
     monkeypatch.setattr(partition, "_stats_range", lambda *a: (0, 3))
     m = _build(files, tmp_path / "s2", False, monkeypatch)
     assert m.options["build_path"] == "sql" and m.n_edges == 3
+
+
+@pytest.mark.parametrize("src,dst", [
+    ([1, 2, 3], [1, 2, 3]),  # only self-loops: no edge left when they are dropped
+    ([-(2**63), -(2**63) + 5], [-(2**63) + 5, -(2**63)]),  # keys at the bottom of int64
+    ([2**63 - 1, 2**63 - 3], [2**63 - 3, 2**63 - 1]),  # and at the top
+])
+@pytest.mark.parametrize("loops", ["keep", "drop"])
+def test_edge_cases_match_the_sql_path(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, src: list[int],
+                                       dst: list[int], loops: str) -> None:
+    files = _write(tmp_path / "in", np.array(src, dtype=np.int64), np.array(dst, dtype=np.int64), parts=1)
+    fast = _build(files, tmp_path / "fast", False, monkeypatch, self_loops=loops)
+    slow = _build(files, tmp_path / "sql", True, monkeypatch, self_loops=loops)
+    assert fast.options["build_path"] == "counting-sort"
+    a, b = _store_arrays(tmp_path / "fast"), _store_arrays(tmp_path / "sql")
+    for k in a:
+        assert np.array_equal(a[k], b[k]), k
+    assert fast.counts == slow.counts and fast.n_edges == slow.n_edges
