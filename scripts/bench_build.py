@@ -33,15 +33,32 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_common import (GiB, MiB, PYTHON, Measured, dir_bytes, fresh_dir, machine_facts,  # noqa: E402
-                          refuse_recursion, run_measured, table)
+from bench_common import (
+    PYTHON,
+    GiB,
+    Measured,
+    MiB,
+    dir_bytes,
+    fresh_dir,
+    machine_facts,  # noqa: E402
+    refuse_recursion,
+    run_measured,
+    table,
+)
 
 SHARDRANK = str(Path(PYTHON).with_name("shardrank"))
 
 
 def parse_size(s: str) -> int:
     s = s.strip().upper()
-    for unit, mult in (("GB", 10**9), ("MB", 10**6), ("GIB", GiB), ("MIB", MiB), ("G", GiB), ("M", MiB)):
+    for unit, mult in (
+        ("GB", 10**9),
+        ("MB", 10**6),
+        ("GIB", GiB),
+        ("MIB", MiB),
+        ("G", GiB),
+        ("M", MiB),
+    ):
         if s.endswith(unit):
             return int(float(s[: -len(unit)]) * mult)
     return int(s)
@@ -63,7 +80,9 @@ def contender_duckdb(edges: Path, out: Path, memory: int, threads: int) -> None:
         "CREATE TABLE keys AS SELECT key, (row_number() OVER (ORDER BY key) - 1)::BIGINT AS id "
         f"FROM (SELECT src AS key FROM {scan} UNION SELECT dst FROM {scan})"
     )
-    con.execute(f"COPY (SELECT id, key FROM keys ORDER BY id) TO '{out / 'nodes.parquet'}' (FORMAT parquet)")
+    con.execute(
+        f"COPY (SELECT id, key FROM keys ORDER BY id) TO '{out / 'nodes.parquet'}' (FORMAT parquet)"
+    )
     con.execute(
         f"COPY (SELECT DISTINCT b.id AS d, a.id AS s FROM {scan} e JOIN keys a ON e.src = a.key "
         "JOIN keys b ON e.dst = b.key ORDER BY d, s) "
@@ -121,9 +140,15 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("edges", type=Path, help="a directory of Parquet edge files (src, dst)")
     p.add_argument("--memory", default="4GB", help="memory budget for shardrank and DuckDB")
     p.add_argument("--threads", type=int, default=2)
-    p.add_argument("--work", type=Path, default=Path("/work/bench-data/work"), help="scratch directory")
-    p.add_argument("--only", action="append", choices=("shardrank", "shardrank-sql", "duckdb", "in-memory"),
-                   help="run only these contenders (repeatable)")
+    p.add_argument(
+        "--work", type=Path, default=Path("/work/bench-data/work"), help="scratch directory"
+    )
+    p.add_argument(
+        "--only",
+        action="append",
+        choices=("shardrank", "shardrank-sql", "duckdb", "in-memory"),
+        help="run only these contenders (repeatable)",
+    )
     p.add_argument("--store", type=Path, help="keep shardrank's store here (default: scratch)")
     p.add_argument("--contender", help=argparse.SUPPRESS)
     p.add_argument("--cli-json", help=argparse.SUPPRESS)
@@ -156,20 +181,50 @@ def main(argv: list[str] | None = None) -> int:
         t0 = time.strftime("%H:%M:%S")
         if name in ("shardrank", "shardrank-sql"):
             fresh_dir(a.work)
-            args = ["build", str(a.edges), "--out", str(store), "--memory", a.memory,
-                    "--threads", str(a.threads), "--overwrite", "--log-format", "json"]
+            args = [
+                "build",
+                str(a.edges),
+                "--out",
+                str(store),
+                "--memory",
+                a.memory,
+                "--threads",
+                str(a.threads),
+                "--overwrite",
+                "--log-format",
+                "json",
+            ]
             if name == "shardrank":
                 cmd = [SHARDRANK, *args]
             else:
-                cmd = [PYTHON, __file__, str(a.edges), "--contender", "shardrank-sql", "--cli-json", json.dumps(args)]
+                cmd = [
+                    PYTHON,
+                    __file__,
+                    str(a.edges),
+                    "--contender",
+                    "shardrank-sql",
+                    "--cli-json",
+                    json.dumps(args),
+                ]
             m = run_measured(name, cmd).check()
             built = [json.loads(x) for x in m.stderr.splitlines() if '"built"' in x]
             extra = built[-1]["message"] if built else ""
             extra += f"; store {dir_bytes(store) / GiB:.2f} GiB on disk"
         elif name == "duckdb":
             fresh_dir(a.work / "duckdb")
-            cmd = [PYTHON, __file__, str(a.edges), "--contender", "duckdb", "--work", str(a.work / "duckdb"),
-                   "--memory", a.memory, "--threads", str(a.threads)]
+            cmd = [
+                PYTHON,
+                __file__,
+                str(a.edges),
+                "--contender",
+                "duckdb",
+                "--work",
+                str(a.work / "duckdb"),
+                "--memory",
+                a.memory,
+                "--threads",
+                str(a.threads),
+            ]
             m = run_measured(name, cmd).check()
             extra = m.stdout.strip()
         else:
@@ -177,17 +232,24 @@ def main(argv: list[str] | None = None) -> int:
             m = run_measured(name, cmd, env={"OMP_NUM_THREADS": str(a.threads)}).check()
             extra = m.stdout.strip()
         results[name] = m
-        print(f"[{t0}] {name}: {m.seconds:.1f} s, peak {m.peak_bytes / GiB:.2f} GiB  {extra}", flush=True)
+        print(
+            f"[{t0}] {name}: {m.seconds:.1f} s, peak {m.peak_bytes / GiB:.2f} GiB  {extra}",
+            flush=True,
+        )
     fresh_dir(a.work / "duckdb")
 
     rows = []
     base_t = {k: v.seconds for k, v in results.items()}
     for name, m in results.items():
-        rows.append([
-            name, fmt_s(m.seconds), fmt_gib(m.peak_bytes),
-            f"{m.seconds / base_t['duckdb']:.2f}" if "duckdb" in base_t else "-",
-            f"{m.seconds / base_t['in-memory']:.2f}" if "in-memory" in base_t else "-",
-        ])
+        rows.append(
+            [
+                name,
+                fmt_s(m.seconds),
+                fmt_gib(m.peak_bytes),
+                f"{m.seconds / base_t['duckdb']:.2f}" if "duckdb" in base_t else "-",
+                f"{m.seconds / base_t['in-memory']:.2f}" if "in-memory" in base_t else "-",
+            ]
+        )
     print()
     print(table(rows, ["contender", "seconds", "peak GiB", "x duckdb", "x in-memory"]))
     if "shardrank" in results:
@@ -195,14 +257,20 @@ def main(argv: list[str] | None = None) -> int:
         print()
         if "in-memory" in results:
             ok = s.seconds < results["in-memory"].seconds
-            print(f"target build < in-memory route:   {s.seconds:.1f} s vs {results['in-memory'].seconds:.1f} s"
-                  f"  {'MET' if ok else 'MISSED'}")
+            print(
+                f"target build < in-memory route:   {s.seconds:.1f} s vs "
+                f"{results['in-memory'].seconds:.1f} s"
+                f"  {'MET' if ok else 'MISSED'}"
+            )
         if "duckdb" in results:
             r = s.seconds / results["duckdb"].seconds
             print(f"target build <= 1.5x DuckDB:       {r:.2f}x  {'MET' if r <= 1.5 else 'MISSED'}")
         lim = memory + 500 * 10**6
-        print(f"target peak <= --memory + 500 MB:  {s.peak_bytes / GiB:.2f} GiB vs {lim / GiB:.2f} GiB"
-              f"  {'MET' if s.peak_bytes <= lim else 'MISSED'}")
+        print(
+            f"target peak <= --memory + 500 MB:  {s.peak_bytes / GiB:.2f} GiB vs "
+            f"{lim / GiB:.2f} GiB"
+            f"  {'MET' if s.peak_bytes <= lim else 'MISSED'}"
+        )
     return 0
 
 

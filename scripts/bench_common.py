@@ -40,19 +40,23 @@ class Measured:
 
     def check(self) -> Measured:
         if self.returncode != 0:
-            raise SystemExit(f"{self.name} failed with exit {self.returncode}:\n{self.stderr[-3000:]}")
+            raise SystemExit(
+                f"{self.name} failed with exit {self.returncode}:\n{self.stderr[-3000:]}"
+            )
         return self
 
 
-def run_measured(name: str, cmd: list[str], env: dict[str, str] | None = None,
-                 cwd: Path | None = None) -> Measured:
+def run_measured(
+    name: str, cmd: list[str], env: dict[str, str] | None = None, cwd: Path | None = None
+) -> Measured:
     """Run ``cmd``; return its wall time and peak RSS (from wait4's rusage of that child)."""
     full_env = dict(os.environ)
     full_env.update(env or {})
     full_env[CHILD_FLAG] = "1"  # a child that is not a contender refuses to start (no recursion)
     t0 = time.perf_counter()
-    p = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=full_env, cwd=cwd,
-                         text=True)
+    p = subprocess.Popen(
+        cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=full_env, cwd=cwd, text=True
+    )
     # read both pipes on threads so a chatty child cannot block on a full pipe
     out: list[str] = []
     err: list[str] = []
@@ -79,8 +83,10 @@ def load_average() -> str:
 def machine_facts() -> str:
     import psutil
 
-    return (f"{os.cpu_count()} cores, {psutil.virtual_memory().total / GiB:.1f} GiB RAM, "
-            f"load average {load_average()}")
+    return (
+        f"{os.cpu_count()} cores, {psutil.virtual_memory().total / GiB:.1f} GiB RAM, "
+        f"load average {load_average()}"
+    )
 
 
 def dir_bytes(path: Path) -> int:
@@ -99,6 +105,10 @@ def table(rows: list[list[str]], header: list[str]) -> str:
     lines = ["  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True))]
     lines.append("  ".join("-" * w for w in widths))
     for r in rows:
-        lines.append("  ".join(str(c).rjust(w) if i else str(c).ljust(w)
-                               for i, (c, w) in enumerate(zip(r, widths, strict=True))))
+        lines.append(
+            "  ".join(
+                str(c).rjust(w) if i else str(c).ljust(w)
+                for i, (c, w) in enumerate(zip(r, widths, strict=True))
+            )
+        )
     return "\n".join(lines)

@@ -38,16 +38,33 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_common import (GiB, MiB, PYTHON, REPO, Measured, dir_bytes, machine_facts,  # noqa: E402
-                          refuse_recursion, run_measured, table)
+from bench_common import (
+    PYTHON,
+    REPO,
+    GiB,
+    Measured,
+    MiB,
+    dir_bytes,
+    machine_facts,  # noqa: E402
+    refuse_recursion,
+    run_measured,
+    table,
+)
 
 MEMCAP = REPO.parent / "shared" / "tools" / "memcap"
 SHARDRANK = str(Path(PYTHON).with_name("shardrank"))
 
 
 # --- children -------------------------------------------------------------------------------
-def child_shardrank(store: Path, run: Path, method: str, threads: int, tol: float, row_chunk: int | None,
-                    max_iter: int) -> None:
+def child_shardrank(
+    store: Path,
+    run: Path,
+    method: str,
+    threads: int,
+    tol: float,
+    row_chunk: int | None,
+    max_iter: int,
+) -> None:
     import shardrank
     from shardrank import settings
     from shardrank.progress import Reporter
@@ -65,13 +82,17 @@ def child_shardrank(store: Path, run: Path, method: str, threads: int, tol: floa
             if message.startswith("ranking "):
                 self.start = (time.perf_counter(), time.process_time())
 
-        def progress(self, phase: str, done: float, total: float | None, unit: str = "", **fields: object) -> None:
+        def progress(
+            self, phase: str, done: float, total: float | None, unit: str = "", **fields: object
+        ) -> None:
             if phase == "ranking":
                 self.stamps.append((time.perf_counter(), time.process_time()))
 
     clock = Clock()
     shutil.rmtree(run, ignore_errors=True)
-    o = RankOptions(method=method, threads=threads, tol=tol, max_iter=max_iter, checkpoint_seconds=1e9)
+    o = RankOptions(
+        method=method, threads=threads, tol=tol, max_iter=max_iter, checkpoint_seconds=1e9
+    )
     t0 = time.perf_counter()
     res = shardrank.rank(store, run, o, clock)
     wall = time.perf_counter() - t0
@@ -87,20 +108,35 @@ def child_shardrank(store: Path, run: Path, method: str, threads: int, tol: floa
     gs = [x for x, k in zip(resid, steps, strict=True) if k == "gauss-seidel"]
     seq = gs if len(gs) >= 3 else resid
     # geometric mean of the change's ratio from one step to the next (the convergence rate)
-    rate = (seq[-1] / seq[1]) ** (1 / (len(seq) - 2)) if len(seq) >= 3 and seq[1] > 0 else float("nan")
-    print(json.dumps({
-        "iterations": doc["iterations"], "converged": doc["converged"], "error_bound": doc["error_bound"],
-        "wall": wall, "iterate_seconds": doc["timings"]["iterate_seconds"],
-        "median": {k: statistics.median(v) for k, v in by_kind.items()},
-        "median_cpu": {k: statistics.median(v) for k, v in cpu_kind.items()},
-        "steps": {k: len(v) for k, v in by_kind.items()}, "rate": rate, "residuals": resid,
-        "n_nodes": doc["n_nodes"], "n_edges": doc["n_edges"], "threads": doc.get("threads"),
-        "scores_sha256": doc["scores"]["sha256"], "converged_flag": bool(res.converged),
-    }))
+    rate = (
+        (seq[-1] / seq[1]) ** (1 / (len(seq) - 2)) if len(seq) >= 3 and seq[1] > 0 else float("nan")
+    )
+    print(
+        json.dumps(
+            {
+                "iterations": doc["iterations"],
+                "converged": doc["converged"],
+                "error_bound": doc["error_bound"],
+                "wall": wall,
+                "iterate_seconds": doc["timings"]["iterate_seconds"],
+                "median": {k: statistics.median(v) for k, v in by_kind.items()},
+                "median_cpu": {k: statistics.median(v) for k, v in cpu_kind.items()},
+                "steps": {k: len(v) for k, v in by_kind.items()},
+                "rate": rate,
+                "residuals": resid,
+                "n_nodes": doc["n_nodes"],
+                "n_edges": doc["n_edges"],
+                "threads": doc.get("threads"),
+                "scores_sha256": doc["scores"]["sha256"],
+                "converged_flag": bool(res.converged),
+            }
+        )
+    )
 
 
-def child_scipy(store: Path, tol: float, damping: float, max_iter: int, prealloc: bool,
-                compare: Path | None) -> None:
+def child_scipy(
+    store: Path, tol: float, damping: float, max_iter: int, prealloc: bool, compare: Path | None
+) -> None:
     import numpy as np
     import scipy.sparse as sp
     from scipy.sparse._sparsetools import csr_matvec  # y += A x into a given y (scipy's own kernel)
@@ -130,7 +166,7 @@ def child_scipy(store: Path, tol: float, damping: float, max_iter: int, prealloc
     bound = float("inf")
     k = 0
     x, y, tmp = np.empty(n), np.empty(n), np.empty(n)
-    for k in range(1, max_iter + 1):
+    for k in range(1, max_iter + 1):  # noqa: B007 (k is reported after the loop)
         t = time.perf_counter()
         if prealloc:
             # the same step without temporaries: every N-sized buffer is allocated once
@@ -160,21 +196,54 @@ def child_scipy(store: Path, tol: float, damping: float, max_iter: int, prealloc
             break
     # sanity: both answers are within tol of the exact one, so within 2 tol of each other
     l1 = float(np.abs(r - np.load(compare, allow_pickle=False)).sum()) if compare else None
-    print(json.dumps({"iterations": k, "converged": bound <= tol, "error_bound": bound, "l1_to_shardrank": l1,
-                      "wall": time.perf_counter() - t_start, "median": {"power": statistics.median(times)},
-                      "n_nodes": n, "n_edges": reader.n_edges}))
+    print(
+        json.dumps(
+            {
+                "iterations": k,
+                "converged": bound <= tol,
+                "error_bound": bound,
+                "l1_to_shardrank": l1,
+                "wall": time.perf_counter() - t_start,
+                "median": {"power": statistics.median(times)},
+                "n_nodes": n,
+                "n_edges": reader.n_edges,
+            }
+        )
+    )
 
 
 # --- driver ---------------------------------------------------------------------------------
-def _child(args: list[str], env: dict[str, str] | None = None, name: str = "") -> tuple[Measured, dict]:
+def _child(
+    args: list[str], env: dict[str, str] | None = None, name: str = ""
+) -> tuple[Measured, dict]:
     m = run_measured(name, [PYTHON, __file__, *args], env=env).check()
     return m, json.loads(m.stdout.strip().splitlines()[-1])
 
 
-def _rank_child(store: Path, work: Path, method: str, threads: int, tol: float, max_iter: int,
-                row_chunk: int | None = None) -> tuple[Measured, dict]:
-    args = ["--child", "shardrank", str(store), "--run", str(work / "run"), "--method", method,
-            "--threads", str(threads), "--tol", str(tol), "--max-iter", str(max_iter)]
+def _rank_child(
+    store: Path,
+    work: Path,
+    method: str,
+    threads: int,
+    tol: float,
+    max_iter: int,
+    row_chunk: int | None = None,
+) -> tuple[Measured, dict]:
+    args = [
+        "--child",
+        "shardrank",
+        str(store),
+        "--run",
+        str(work / "run"),
+        "--method",
+        method,
+        "--threads",
+        str(threads),
+        "--tol",
+        str(tol),
+        "--max-iter",
+        str(max_iter),
+    ]
     if row_chunk:
         args += ["--row-chunk", str(row_chunk)]
     # NUMBA_NUM_THREADS caps the pool, so a 1-thread run has no idle workers either
@@ -189,17 +258,36 @@ def bench_store(store: Path, a: argparse.Namespace) -> dict[str, object]:
             key = f"shardrank {method} {threads}t"
             res[key] = _rank_child(store, a.work, method, threads, a.tol, a.max_iter)
             m, d = res[key]
-            print(f"[{time.strftime('%H:%M:%S')}] {key}: {d['iterations']} it, {d['wall']:.1f} s, "
-                  f"median {d['median']}, peak {m.peak_bytes / MiB:.0f} MiB  (load {os.getloadavg()[0]:.2f})",
-                  flush=True)
+            print(
+                f"[{time.strftime('%H:%M:%S')}] {key}: {d['iterations']} it, {d['wall']:.1f} s, "
+                f"median {d['median']}, peak {m.peak_bytes / MiB:.0f} MiB  "
+                f"(load {os.getloadavg()[0]:.2f})",
+                flush=True,
+            )
     for name, extra in (("scipy", []), ("scipy prealloc", ["--prealloc"])):
-        res[name] = _child(["--child", "scipy", str(store), "--tol", str(a.tol), "--max-iter", str(a.max_iter),
-                            "--compare", str(a.work / "run" / "scores.npy"), *extra],
-                           env={"OMP_NUM_THREADS": "1"}, name=name)
+        res[name] = _child(
+            [
+                "--child",
+                "scipy",
+                str(store),
+                "--tol",
+                str(a.tol),
+                "--max-iter",
+                str(a.max_iter),
+                "--compare",
+                str(a.work / "run" / "scores.npy"),
+                *extra,
+            ],
+            env={"OMP_NUM_THREADS": "1"},
+            name=name,
+        )
         m, d = res[name]
-        print(f"[{time.strftime('%H:%M:%S')}] {name}: {d['iterations']} it, {d['wall']:.1f} s, median {d['median']}, "
-              f"peak {m.peak_bytes / MiB:.0f} MiB, L1 distance to shardrank's scores {d['l1_to_shardrank']:.2e}",
-              flush=True)
+        print(
+            f"[{time.strftime('%H:%M:%S')}] {name}: {d['iterations']} it, {d['wall']:.1f} s, "
+            f"median {d['median']}, peak {m.peak_bytes / MiB:.0f} MiB, "
+            f"L1 distance to shardrank's scores {d['l1_to_shardrank']:.2e}",
+            flush=True,
+        )
     n_nodes, n_edges = d["n_nodes"], d["n_edges"]
     # the ratio is taken against the faster scipy variant (the stricter comparison)
     sp_it = min(res[k][1]["median"]["power"] for k in ("scipy", "scipy prealloc"))
@@ -207,13 +295,38 @@ def bench_store(store: Path, a: argparse.Namespace) -> dict[str, object]:
     for key, (m, d) in res.items():
         med = d["median"].get("power", float("nan"))
         sweep = d["median"].get("gauss-seidel")
-        rows.append([key, str(d["iterations"]), f"{d['wall']:.1f}", f"{med:.3f}",
-                     f"{sweep:.3f}" if sweep else "-", f"{n_edges / (sweep or med) / 1e6:.0f}",
-                     f"{(sweep or med) / sp_it:.2f}", f"{m.peak_bytes / MiB:.0f}"])
+        rows.append(
+            [
+                key,
+                str(d["iterations"]),
+                f"{d['wall']:.1f}",
+                f"{med:.3f}",
+                f"{sweep:.3f}" if sweep else "-",
+                f"{n_edges / (sweep or med) / 1e6:.0f}",
+                f"{(sweep or med) / sp_it:.2f}",
+                f"{m.peak_bytes / MiB:.0f}",
+            ]
+        )
     print()
-    print(f"{n_nodes:,} nodes, {n_edges:,} edges, {dir_bytes(store) / GiB:.2f} GiB on disk; tol {a.tol:g}")
-    print(table(rows, ["contender", "iters", "wall s", "s/power step", "s/GS sweep", "Medge/s",
-                       "x scipy", "peak MiB"]))
+    print(
+        f"{n_nodes:,} nodes, {n_edges:,} edges, {dir_bytes(store) / GiB:.2f} GiB on disk; "
+        f"tol {a.tol:g}"
+    )
+    print(
+        table(
+            rows,
+            [
+                "contender",
+                "iters",
+                "wall s",
+                "s/power step",
+                "s/GS sweep",
+                "Medge/s",
+                "x scipy",
+                "peak MiB",
+            ],
+        )
+    )
     top = max(a.threads)
     p_it = res[f"shardrank power {top}t"][1]["iterations"]
     g_it = res[f"shardrank gauss-seidel {top}t"][1]["iterations"]
@@ -222,10 +335,18 @@ def bench_store(store: Path, a: argparse.Namespace) -> dict[str, object]:
     peak = max(m.peak_bytes for k, (m, _d) in res.items() if k.startswith("shardrank"))
     same = {d["scores_sha256"] for k, (_m, d) in res.items() if k.startswith("shardrank power")}
     print()
-    print(f"target s/iteration <= 0.3x the faster scipy ({top} threads, power): {ratio:.2f}x  "
-          f"{'MET' if ratio <= 0.3 else 'MISSED'}")
-    print(f"target GS iterations <= 0.6x power: {g_it}/{p_it} = {g_it / p_it:.2f}  {'MET' if g_it <= 0.6 * p_it else 'MISSED'}")
-    print(f"target peak <= 24 N + 300 MB = {limit / MiB:.0f} MiB: {peak / MiB:.0f} MiB  {'MET' if peak <= limit else 'MISSED'}")
+    print(
+        f"target s/iteration <= 0.3x the faster scipy ({top} threads, power): {ratio:.2f}x  "
+        f"{'MET' if ratio <= 0.3 else 'MISSED'}"
+    )
+    print(
+        f"target GS iterations <= 0.6x power: {g_it}/{p_it} = {g_it / p_it:.2f}  "
+        f"{'MET' if g_it <= 0.6 * p_it else 'MISSED'}"
+    )
+    print(
+        f"target peak <= 24 N + 300 MB = {limit / MiB:.0f} MiB: {peak / MiB:.0f} MiB  "
+        f"{'MET' if peak <= limit else 'MISSED'}"
+    )
     print(f"power scores identical at {a.threads} threads: {len(same) == 1}")
     out: dict[str, object] = {"n_nodes": n_nodes, "n_edges": n_edges, "peak": peak, "limit": limit}
     if a.memcap:
@@ -248,37 +369,81 @@ def evict(store: Path) -> None:
 
 
 def memcap_runs(store: Path, a: argparse.Namespace, threads: int) -> None:
-    """`shardrank rank` (CLI) warm, cold (store evicted from the page cache), and cold under memcap."""
+    """`shardrank rank` (CLI) warm, cold (store evicted from the page cache), cold under memcap."""
     rows = []
-    base = [SHARDRANK, "rank", str(store), "--out", str(a.work / "capped"), "--method", "power",
-            "--threads", str(threads), "--tol", str(a.tol), "--overwrite", "-q"]
-    for name, cold, cap in (("warm", False, None), ("cold", True, None), (f"cold, memcap {a.memcap}", True, a.memcap)):
+    base = [
+        SHARDRANK,
+        "rank",
+        str(store),
+        "--out",
+        str(a.work / "capped"),
+        "--method",
+        "power",
+        "--threads",
+        str(threads),
+        "--tol",
+        str(a.tol),
+        "--overwrite",
+        "-q",
+    ]
+    for name, cold, cap in (
+        ("warm", False, None),
+        ("cold", True, None),
+        (f"cold, memcap {a.memcap}", True, a.memcap),
+    ):
         if cold:
             evict(store)
         cmd = [str(MEMCAP), cap, *base] if cap else base
         m = run_measured(name, cmd)
         line = [x for x in m.stderr.splitlines() if x.startswith("memcap:")]
-        rows.append([name, str(m.returncode), f"{m.seconds:.1f}", f"{m.peak_bytes / MiB:.0f}", line[-1] if line else ""])
+        rows.append(
+            [
+                name,
+                str(m.returncode),
+                f"{m.seconds:.1f}",
+                f"{m.peak_bytes / MiB:.0f}",
+                line[-1] if line else "",
+            ]
+        )
         shutil.rmtree(a.work / "capped", ignore_errors=True)
-    print(f"\nrank under a memory cap (store {dir_bytes(store) / MiB:.0f} MiB on disk; CLI, power, {threads} threads)")
+    print(
+        f"\nrank under a memory cap (store {dir_bytes(store) / MiB:.0f} MiB on disk; CLI, power, "
+        f"{threads} threads)"
+    )
     print(table(rows, ["run", "exit", "seconds", "peak RSS MiB", "memcap"]))
     warm, cold, capped = (float(r[2]) for r in rows)
-    print(f"capped run: {capped / warm:.2f}x the warm run, {capped / cold:.2f}x the cold uncapped run")
+    print(
+        f"capped run: {capped / warm:.2f}x the warm run, {capped / cold:.2f}x the cold uncapped run"
+    )
 
 
 def sweep_chunks(store: Path, a: argparse.Namespace) -> None:
     print(f"\n== Gauss-Seidel row chunk sweep on {store} ==", flush=True)
     rows = []
     for chunk in a.sweep_chunks:
-        for method in ("power", "gauss-seidel") if chunk == a.sweep_chunks[0] else ("gauss-seidel",):
-            m, d = _rank_child(store, a.work, method, max(a.threads), a.tol, a.max_iter, row_chunk=chunk)
+        for method in (
+            ("power", "gauss-seidel") if chunk == a.sweep_chunks[0] else ("gauss-seidel",)
+        ):
+            m, d = _rank_child(
+                store, a.work, method, max(a.threads), a.tol, a.max_iter, row_chunk=chunk
+            )
             med = d["median"]
             cpu = d["median_cpu"]
-            rows.append([method, str(chunk), str(d["iterations"]), f"{d['rate']:.4f}", f"{d['wall']:.1f}",
-                         f"{med.get('gauss-seidel', med.get('power')):.3f}",
-                         f"{cpu.get('gauss-seidel', cpu.get('power')):.3f}"])
+            rows.append(
+                [
+                    method,
+                    str(chunk),
+                    str(d["iterations"]),
+                    f"{d['rate']:.4f}",
+                    f"{d['wall']:.1f}",
+                    f"{med.get('gauss-seidel', med.get('power')):.3f}",
+                    f"{cpu.get('gauss-seidel', cpu.get('power')):.3f}",
+                ]
+            )
             print(f"  {rows[-1]}", flush=True)
-    print(table(rows, ["method", "row chunk", "iters", "rate/step", "wall s", "s/step", "cpu s/step"]))
+    print(
+        table(rows, ["method", "row chunk", "iters", "rate/step", "wall s", "s/step", "cpu s/step"])
+    )
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -288,9 +453,14 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--tol", type=float, default=1e-9)
     p.add_argument("--max-iter", type=int, default=1000)
     p.add_argument("--work", type=Path, default=Path("/work/bench-data/rank-work"))
-    p.add_argument("--memcap", metavar="SIZE", help="also rank under memcap with this cap (e.g. 300M)")
-    p.add_argument("--sweep-chunks", type=lambda s: [int(x) for x in s.split(",")],
-                   help="instead: Gauss-Seidel iterations and time for these ROW_CHUNK values")
+    p.add_argument(
+        "--memcap", metavar="SIZE", help="also rank under memcap with this cap (e.g. 300M)"
+    )
+    p.add_argument(
+        "--sweep-chunks",
+        type=lambda s: [int(x) for x in s.split(",")],
+        help="instead: Gauss-Seidel iterations and time for these ROW_CHUNK values",
+    )
     p.add_argument("--child", choices=("shardrank", "scipy"), help=argparse.SUPPRESS)
     p.add_argument("--run", type=Path, help=argparse.SUPPRESS)
     p.add_argument("--method", default="power", help=argparse.SUPPRESS)

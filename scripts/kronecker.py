@@ -62,8 +62,14 @@ def kronecker_chunk(rng: np.random.Generator, scale: int, m: int) -> tuple[np.nd
     return src, dst
 
 
-def write_kronecker(scale: int, out: Path, seed: int, edgefactor: int = EDGEFACTOR,
-                    chunk_edges: int = CHUNK_EDGES, quiet: bool = False) -> dict[str, object]:
+def write_kronecker(
+    scale: int,
+    out: Path,
+    seed: int,
+    edgefactor: int = EDGEFACTOR,
+    chunk_edges: int = CHUNK_EDGES,
+    quiet: bool = False,
+) -> dict[str, object]:
     """Write ``edgefactor * 2^scale`` edges into ``out/part-NNNNN.parquet``; return the facts."""
     n = 1 << scale
     m = edgefactor * n
@@ -85,13 +91,26 @@ def write_kronecker(scale: int, out: Path, seed: int, edgefactor: int = EDGEFACT
         os.replace(tmp, final)
         if not quiet:
             el = time.monotonic() - t0
-            print(f"\rscale {scale}: chunk {c + 1}/{n_chunks} ({el:.0f} s)", end="", file=sys.stderr, flush=True)
+            print(
+                f"\rscale {scale}: chunk {c + 1}/{n_chunks} ({el:.0f} s)",
+                end="",
+                file=sys.stderr,
+                flush=True,
+            )
     if not quiet:
         print(file=sys.stderr)
-    facts = {"generator": "graph500-kronecker", "scale": scale, "edgefactor": edgefactor,
-             "initiator": [A, B, C, round(D, 12)], "seed": seed, "chunk_edges": chunk_edges,
-             "n_vertices": n, "n_edges_raw": m, "n_files": n_chunks,
-             "seconds": round(time.monotonic() - t0, 1)}
+    facts = {
+        "generator": "graph500-kronecker",
+        "scale": scale,
+        "edgefactor": edgefactor,
+        "initiator": [A, B, C, round(D, 12)],
+        "seed": seed,
+        "chunk_edges": chunk_edges,
+        "n_vertices": n,
+        "n_edges_raw": m,
+        "n_files": n_chunks,
+        "seconds": round(time.monotonic() - t0, 1),
+    }
     # "_"-prefixed: `shardrank build DIR` skips it as a non-data file
     (out / "_kronecker.json").write_text(json.dumps(facts, indent=2) + "\n")
     return facts

@@ -34,8 +34,12 @@ def _write(dirpath: Path, src: np.ndarray, dst: np.ndarray, parts: int = 3) -> l
 
 def _store_arrays(path: Path) -> dict[str, np.ndarray]:
     r = StoreReader.open(path, checksums=True)
-    out = {"keys": np.asarray(r.keys().to_numpy()), "out_degree": np.array(r.out_degree()),
-           "in_degree": np.array(r.in_degree()), "out_weight": np.array(r.out_weight())}
+    out = {
+        "keys": np.asarray(r.keys().to_numpy()),
+        "out_degree": np.array(r.out_degree()),
+        "in_degree": np.array(r.in_degree()),
+        "out_weight": np.array(r.out_weight()),
+    }
     for i in range(r.n_blocks):
         sh = r.shard(i)
         out[f"offsets{i}"] = np.array(sh.offsets)
@@ -43,7 +47,9 @@ def _store_arrays(path: Path) -> dict[str, np.ndarray]:
     return out
 
 
-def _build(files: list[Path], out: Path, sql: bool, monkeypatch: pytest.MonkeyPatch, **kw: object) -> shardrank.StoreManifest:
+def _build(
+    files: list[Path], out: Path, sql: bool, monkeypatch: pytest.MonkeyPatch, **kw: object
+) -> shardrank.StoreManifest:
     with monkeypatch.context() as m:
         if sql:
             m.setattr(build_mod, "plan_integer_build", lambda *a, **k: None)
@@ -63,16 +69,18 @@ def _small_cap(real):  # type: ignore[no-untyped-def]
     def plan(lo: int, hi: int, n_rows: int, memory: int) -> partition.IntPlan | None:
         p = real(lo, hi, n_rows, memory)
         return None if p is None else partition.IntPlan(p.lo, p.span, p.n_rows, 700, p.memory)
+
     return plan
 
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 @pytest.mark.parametrize("loops", ["keep", "drop"])
-def test_same_store_as_sql_path(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, tiny_ranges: None,
-                                seed: int, loops: str) -> None:
+def test_same_store_as_sql_path(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, tiny_ranges: None, seed: int, loops: str
+) -> None:
     rng = np.random.default_rng(seed)
     n, m = int(rng.integers(5, 400)), int(rng.integers(50, 6000))
-    keys = int(rng.integers(-10**9, 10**9)) + rng.choice(7 * n, n, replace=False)
+    keys = int(rng.integers(-(10**9), 10**9)) + rng.choice(7 * n, n, replace=False)
     src, dst = keys[rng.integers(0, n, m)], keys[rng.integers(0, n, m)]
     files = _write(tmp_path / "in", src, dst)
     bn = int(rng.integers(1, 200))
@@ -96,14 +104,16 @@ def test_same_store_as_sql_path(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
     assert np.array_equal(a["in_degree"], np.diff(csr.indptr))
 
 
-def test_loose_statistics_fall_back_to_a_measured_range(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_loose_statistics_fall_back_to_a_measured_range(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     # footer statistics narrower than the data: the scatter pass notices and measures the range
     src, dst = np.array([5, 6, 7, 100]), np.array([6, 7, 5, 5])
     files = _write(tmp_path / "in", src, dst, parts=1)
     monkeypatch.setattr(partition, "_stats_range", lambda *a: (5, 7))
     fast = _build(files, tmp_path / "fast", False, monkeypatch)
     slow = _build(files, tmp_path / "sql", True, monkeypatch)
-    assert fast.options["build_path"] == "counting-sort"
+    assert fast.options["build_path"] == "counting-sort" and fast.counts == slow.counts
     a, b = _store_arrays(tmp_path / "fast"), _store_arrays(tmp_path / "sql")
     for k in a:
         assert np.array_equal(a[k], b[k]), k
@@ -120,15 +130,21 @@ def test_wide_key_range_takes_the_sql_path(tmp_path: Path, monkeypatch: pytest.M
     assert m.options["build_path"] == "sql" and m.n_edges == 3
 
 
-@pytest.mark.parametrize("src,dst", [
-    ([1, 2, 3], [1, 2, 3]),  # only self-loops: no edge left when they are dropped
-    ([-(2**63), -(2**63) + 5], [-(2**63) + 5, -(2**63)]),  # keys at the bottom of int64
-    ([2**63 - 1, 2**63 - 3], [2**63 - 3, 2**63 - 1]),  # and at the top
-])
+@pytest.mark.parametrize(
+    "src,dst",
+    [
+        ([1, 2, 3], [1, 2, 3]),  # only self-loops: no edge left when they are dropped
+        ([-(2**63), -(2**63) + 5], [-(2**63) + 5, -(2**63)]),  # keys at the bottom of int64
+        ([2**63 - 1, 2**63 - 3], [2**63 - 3, 2**63 - 1]),  # and at the top
+    ],
+)
 @pytest.mark.parametrize("loops", ["keep", "drop"])
-def test_edge_cases_match_the_sql_path(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, src: list[int],
-                                       dst: list[int], loops: str) -> None:
-    files = _write(tmp_path / "in", np.array(src, dtype=np.int64), np.array(dst, dtype=np.int64), parts=1)
+def test_edge_cases_match_the_sql_path(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, src: list[int], dst: list[int], loops: str
+) -> None:
+    files = _write(
+        tmp_path / "in", np.array(src, dtype=np.int64), np.array(dst, dtype=np.int64), parts=1
+    )
     fast = _build(files, tmp_path / "fast", False, monkeypatch, self_loops=loops)
     slow = _build(files, tmp_path / "sql", True, monkeypatch, self_loops=loops)
     assert fast.options["build_path"] == "counting-sort"

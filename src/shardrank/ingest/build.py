@@ -226,7 +226,7 @@ def _build(
         plan = plan_integer_build(con, files, cols, counts["rows_read"] - counts["rows_dropped_null"],
                                   memory, cols.weight is not None, bool(node_files))
         fast = plan and build_integer(con, plan, tmp, o.block_nodes, o.self_loops == "drop", o.threads,
-                                      lambda n: (_check_width(n, o), _width_for(n, o))[1], rep)
+                                      lambda n: _checked_width(n, o), rep)
         if fast:
             w, out_deg, in_deg, dd = fast
             counts.update(dd)
@@ -351,6 +351,12 @@ def _check_width(n: int, o: BuildOptions) -> None:
             f"{n:,} nodes do not fit in {w}-bit ids (at most {2**w:,})",
             hint="pass --id-width 64 (or auto)",
         )
+
+
+def _checked_width(n: int, o: BuildOptions) -> int:
+    """The bits of a stored source id for ``n`` nodes; BadInputError if they do not fit."""
+    _check_width(n, o)
+    return _width_for(n, o)
 
 
 def _dedupe(con: duckdb.DuckDBPyConnection, cols: Columns, o: BuildOptions, rep: Reporter) -> dict[str, int]:

@@ -45,8 +45,12 @@ from .tables import Columns, arrow_reader, sql_str
 
 MAX_SPILL_FILES = 256  # destination key ranges written in the scatter pass (open files)
 RESERVE_BYTES = 384 * 2**20  # interpreter, DuckDB's streaming buffers, one Arrow batch
-BYTES_PER_EDGE = 12  # while sorting: the edge as one uint64 (packed in place) + its uint32 source out
-BYTES_PER_KEY = 29  # presence (1) + id (4) per key of the range; degrees and their running sum (24) per node
+BYTES_PER_EDGE = (
+    12  # while sorting: the edge as one uint64 (packed in place) + its uint32 source out
+)
+BYTES_PER_KEY = (
+    29  # presence (1) + id (4) per key of the range; degrees and their running sum (24) per node
+)
 SORT_GROUP_EDGES = 1 << 25  # edges sorted at once at most (256 MiB): one buffer, reused
 MIN_CAP_EDGES = 1 << 20  # a budget that cannot sort this many edges at once takes the SQL path
 MIN_EDGES_PER_SPILL = 1 << 16  # small inputs get few spill files
@@ -65,7 +69,9 @@ class IntPlan:
 
 # --- kernels --------------------------------------------------------------------------------
 @njit(cache=True)
-def scatter_batch(s, d, lo, span, shift, n_parts, drop_loops, present, out_pairs):  # pragma: no cover - jit
+def scatter_batch(
+    s, d, lo, span, shift, n_parts, drop_loops, present, out_pairs
+):  # pragma: no cover - jit
     """Counting sort of one batch by destination key range.
 
     Parameters
@@ -168,7 +174,9 @@ def dedupe_sorted(keys, in_deg, out_deg, src_out):  # pragma: no cover - jit
 
 
 # --- planning -------------------------------------------------------------------------------
-def _stats_range(con: duckdb.DuckDBPyConnection, files: list[InputFile], cols: Columns) -> tuple[int, int] | None:
+def _stats_range(
+    con: duckdb.DuckDBPyConnection, files: list[InputFile], cols: Columns
+) -> tuple[int, int] | None:
     """Key range from Parquet footer statistics (no scan); None if any file lacks them."""
     if any(f.kind != "parquet" for f in files):
         return None
@@ -209,8 +217,13 @@ def _plan_for(lo: int, hi: int, n_rows: int, memory: int) -> IntPlan | None:
 
 
 def plan_integer_build(
-    con: duckdb.DuckDBPyConnection, files: list[InputFile], cols: Columns, n_rows: int, memory: int,
-    weighted: bool, has_node_files: bool,
+    con: duckdb.DuckDBPyConnection,
+    files: list[InputFile],
+    cols: Columns,
+    n_rows: int,
+    memory: int,
+    weighted: bool,
+    has_node_files: bool,
 ) -> IntPlan | None:
     """A plan for the counting-sort path, or None when the SQL path must build the store."""
     if cols.key_type != "int64" or weighted or has_node_files or n_rows == 0:
@@ -228,14 +241,24 @@ def _shift_for(span: int, n_parts: int) -> int:
     return max(0, math.ceil(math.log2(max(span, 1) / n_parts)))
 
 
-def _scatter(con: duckdb.DuckDBPyConnection, plan: IntPlan, spill: Path, drop_loops: bool,
-             present: np.ndarray, rep: Reporter) -> tuple[list[Path], list[int], int]:
+def _scatter(
+    con: duckdb.DuckDBPyConnection,
+    plan: IntPlan,
+    spill: Path,
+    drop_loops: bool,
+    present: np.ndarray,
+    rep: Reporter,
+) -> tuple[list[Path], list[int], int]:
     """Pass over the edges: presence, and spill files by destination range. Returns the files,
     their edge counts and the shift that defines their ranges."""
     # about four ranges per sort group, so groups come out even when keys are skewed
     group = min(plan.cap_edges, SORT_GROUP_EDGES)
-    want = max(1, min(MAX_SPILL_FILES, 4 * math.ceil(plan.n_rows / group),
-                      plan.n_rows // MIN_EDGES_PER_SPILL))
+    want = max(
+        1,
+        min(
+            MAX_SPILL_FILES, 4 * math.ceil(plan.n_rows / group), plan.n_rows // MIN_EDGES_PER_SPILL
+        ),
+    )
     shift = _shift_for(plan.span, want)
     n_parts = ((plan.span - 1) >> shift) + 1
     paths = [spill / f"range-{p:04d}.u64" for p in range(n_parts)]
@@ -249,12 +272,14 @@ def _scatter(con: duckdb.DuckDBPyConnection, plan: IntPlan, spill: Path, drop_lo
             d = batch.column(1).to_numpy()
             if buf.shape[0] < s.shape[0]:
                 buf = np.empty(s.shape[0], dtype=np.uint64)
-            starts = scatter_batch(s, d, plan.lo, plan.span, shift, n_parts, drop_loops, present, buf)
+            starts = scatter_batch(
+                s, d, plan.lo, plan.span, shift, n_parts, drop_loops, present, buf
+            )
             if starts.shape[0] == 0:
                 raise _OutOfRange
             for p in np.flatnonzero(np.diff(starts)).tolist():
                 a, b = int(starts[p]), int(starts[p + 1])
-                files[p].write(memoryview(buf[a:b]).cast("B"))
+                files[p].write(buf[a:b].data.cast("B"))
                 sizes[p] += b - a
             done += s.shape[0]
             rep.progress("partitioning edges", done, plan.n_rows, "edges")
@@ -287,7 +312,7 @@ def _read_pairs(paths: list[Path], sizes: list[int], buf: np.ndarray) -> np.ndar
     pos = 0
     for path, n in zip(paths, sizes, strict=True):
         with open(path, "rb") as f:
-            got = f.readinto(memoryview(buf[pos : pos + n]).cast("B"))
+            got = f.readinto(buf[pos : pos + n].data.cast("B"))
         if got != 8 * n:
             raise ShardrankError(f"internal error: {path} holds {got} bytes, expected {8 * n}")
         pos += n
@@ -295,8 +320,16 @@ def _read_pairs(paths: list[Path], sizes: list[int], buf: np.ndarray) -> np.ndar
     return buf[:pos]
 
 
-def _sort_ranges(paths: list[Path], sizes: list[int], ids: np.ndarray, cap: int, sources_path: Path,
-                 in_deg: np.ndarray, out_deg: np.ndarray, rep: Reporter) -> tuple[int, int]:
+def _sort_ranges(
+    paths: list[Path],
+    sizes: list[int],
+    ids: np.ndarray,
+    cap: int,
+    sources_path: Path,
+    in_deg: np.ndarray,
+    out_deg: np.ndarray,
+    rep: Reporter,
+) -> tuple[int, int]:
     """Sort and deduplicate range groups in order; append their source ids (uint32) to
     ``sources_path`` (the destinations follow from the in-degrees). Returns (edges, self-loops)."""
     groups = _groups(sizes, min(cap, SORT_GROUP_EDGES))
@@ -311,7 +344,7 @@ def _sort_ranges(paths: list[Path], sizes: list[int], ids: np.ndarray, cap: int,
             pack_edges(keys, ids)
             keys.sort()
             n, loops = dedupe_sorted(keys, in_deg, out_deg, src)
-            out.write(memoryview(src[:n]).cast("B"))
+            out.write(src[:n].data.cast("B"))
             n_edges += int(n)
             n_loops += int(loops)
             rep.progress("sorting and merging duplicates", g + 1, len(groups), "ranges")
@@ -327,11 +360,17 @@ def _write_nodes(path: Path, present: np.ndarray, lo: int, n: int) -> None:
     with pq.ParquetWriter(path, schema, compression="zstd") as w:
         for a in range(0, n, step):
             b = min(a + step, n)
-            w.write_table(pa.table([pa.array(np.arange(a, b, dtype=np.int64)), pa.array(keys[a:b])], schema=schema),
-                          row_group_size=step)
+            w.write_table(
+                pa.table(
+                    [pa.array(np.arange(a, b, dtype=np.int64)), pa.array(keys[a:b])], schema=schema
+                ),
+                row_group_size=step,
+            )
 
 
-def _stream_sorted(path: Path, w: StoreWriter, in_deg: np.ndarray, n_edges: int, rep: Reporter) -> None:
+def _stream_sorted(
+    path: Path, w: StoreWriter, in_deg: np.ndarray, n_edges: int, rep: Reporter
+) -> None:
     """Feed the writer batches of (dst, src): sources from ``path``, destinations rebuilt from
     the in-degrees (row r owns edges ``ends[r] - in_deg[r] .. ends[r] - 1``)."""
     ends = np.cumsum(in_deg)
@@ -341,7 +380,9 @@ def _stream_sorted(path: Path, w: StoreWriter, in_deg: np.ndarray, n_edges: int,
             e1 = min(e0 + step, n_edges)
             src = np.fromfile(f, dtype=np.uint32, count=e1 - e0)
             if src.shape[0] != e1 - e0:
-                raise ShardrankError(f"internal error: {path} ended after {e0 + src.shape[0]} of {n_edges} edges")
+                raise ShardrankError(
+                    f"internal error: {path} ended after {e0 + src.shape[0]} of {n_edges} edges"
+                )
             ra = int(np.searchsorted(ends, e0, side="right"))  # first row ending after e0
             rb = int(np.searchsorted(ends, e1 - 1, side="right"))  # the row holding edge e1 - 1
             first = np.maximum(ends[ra : rb + 1] - in_deg[ra : rb + 1], e0)
@@ -352,8 +393,14 @@ def _stream_sorted(path: Path, w: StoreWriter, in_deg: np.ndarray, n_edges: int,
 
 
 def build_integer(
-    con: duckdb.DuckDBPyConnection, plan: IntPlan, tmp: Path, block_nodes: int, drop_loops: bool,
-    threads: int | None, checked_width: Callable[[int], int], rep: Reporter,
+    con: duckdb.DuckDBPyConnection,
+    plan: IntPlan,
+    tmp: Path,
+    block_nodes: int,
+    drop_loops: bool,
+    threads: int | None,
+    checked_width: Callable[[int], int],
+    rep: Reporter,
 ) -> tuple[StoreWriter, np.ndarray, np.ndarray, dict[str, int]] | None:
     """Write nodes, degrees and shards of the store in ``tmp`` by the counting-sort path.
 
@@ -367,7 +414,7 @@ def build_integer(
     spill.mkdir()
     old_threads = numba.get_num_threads()
     if threads:
-        numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+        numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))  # type: ignore[attr-defined]
     try:
         present = np.zeros(plan.span, dtype=np.uint8)
         rep.event("phase", "partitioning edges by destination...", phase="partition")
@@ -394,7 +441,9 @@ def build_integer(
         out_deg = np.zeros(n, dtype=np.int64)
         rep.event("phase", "sorting edges and merging duplicates...", phase="sort")
         sorted_path = spill / "sources.u32"
-        n_edges, n_loops = _sort_ranges(paths, sizes, ids, plan.cap_edges, sorted_path, in_deg, out_deg, rep)
+        n_edges, n_loops = _sort_ranges(
+            paths, sizes, ids, plan.cap_edges, sorted_path, in_deg, out_deg, rep
+        )
         del ids
         w = StoreWriter(tmp, n, block_nodes, f"<u{width // 8}", False)
         w.add_file(layout.NODES)
@@ -410,8 +459,11 @@ def build_integer(
         numba.set_num_threads(old_threads)
         shutil.rmtree(spill, ignore_errors=True)
     kept_rows = sum(sizes)
-    counts = {"duplicates_merged": kept_rows - n_edges, "self_loops": n_loops,
-              "self_loop_rows_dropped": -1 if drop_loops else 0}
+    counts = {
+        "duplicates_merged": kept_rows - n_edges,
+        "self_loops": n_loops,
+        "self_loop_rows_dropped": -1 if drop_loops else 0,
+    }
     return w, out_deg, in_deg, counts
 
 

@@ -87,8 +87,8 @@ class LocalEngine:
         return math.fsum(part)
 
     def _prefetch(self, i: int) -> None:
-        """Ask the OS to start reading block ``i``'s shard files now, so that when the store does
-        not fit in the page cache the disk reads overlap the gather of the block before it."""
+        """Ask the OS to start reading block ``i``'s shard files now: when the store does not
+        fit in the page cache, the disk reads overlap the gather of the block before it."""
         names = [layout.shard_offsets(i), layout.shard_sources(i)]
         if self.reader.weighted:
             names.append(layout.shard_weights(i))
@@ -106,7 +106,8 @@ class LocalEngine:
         b = self.blocks[i]
         sh = self._shard(i)
         if hasattr(os, "posix_fadvise"):
-            self._prefetch((i + 1) % len(self.blocks))  # the last block's successor is the next sweep's first
+            # after the last block comes the next sweep's first
+            self._prefetch((i + 1) % len(self.blocks))
         add_u, add_t = self.problem.constants(dead_mass)
         tele = self.problem.teleport
         v = self._no_v if tele.uniform else tele.fill_block(b.first_node, b.n_nodes, self._v_buf)
@@ -142,7 +143,7 @@ class LocalEngine:
 
     def close(self) -> None:
         # hand back s and the out-weight mapping (2 x 8N bytes) before the caller writes the
-        # results, so the run's peak memory is the iteration's, not the iteration's plus output
+        # results: the run's peak memory is then the iteration's, not iteration plus output
         self.s = np.empty(0, dtype=np.float64)
         self.w_out = np.empty(0, dtype=np.float64)
         self._shards.clear()
