@@ -29,6 +29,10 @@ DEAD_ENDS = "teleport"  # "teleport" (strongly preferential) or "uniform" (weakl
 CHECKPOINT_SECONDS = 60.0  # seconds between checkpoints when --checkpoint-every is not given
 CHECKPOINTS_KEPT = 2  # newest checkpoints kept in RUN/checkpoints
 MAX_OPEN_SHARD_FILES = 512  # shard mappings kept open across iterations (one descriptor each)
+# ...and only while the shards total at most this many bytes: a kept mapping stays in the
+# process's resident memory once read, so larger stores are mapped one block at a time
+# (rank memory flat in the edge count; see docs/performance.md)
+MAX_KEPT_SHARD_BYTES = 64 * 2**20  # bytes
 ROW_CHUNK = 4096  # destination rows per parallel work item inside a block (fixed: determinism)
 MASS_TOLERANCE = 1e-12  # |sum(scores) - 1| allowed after every iteration
 

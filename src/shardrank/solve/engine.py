@@ -69,7 +69,10 @@ class LocalEngine:
         # Keep shard mappings open across iterations when that costs few file descriptors
         # (each mapping holds one): reopening them every sweep dominated small-block runs.
         files = 3 if reader.weighted else 2
-        self._keep_shards = len(self.blocks) * files <= settings.MAX_OPEN_SHARD_FILES
+        shard_bytes = sum(f.bytes for name, f in reader.manifest.files.items()
+                          if name.startswith(layout.SHARD_DIR + "/"))
+        self._keep_shards = (len(self.blocks) * files <= settings.MAX_OPEN_SHARD_FILES
+                             and shard_bytes <= settings.MAX_KEPT_SHARD_BYTES)
         self._shards: dict[int, Shard] = {}
 
     def _shard(self, i: int) -> Shard:
