@@ -133,6 +133,9 @@ def main() -> int:
     ap.add_argument("--out", default="/tmp/bench-dask")
     ap.add_argument("--steps", type=int, default=6, help="steps timed after the first (0: skip)")
     ap.add_argument("--no-runs", action="store_true", help="only the single-step table")
+    ap.add_argument(
+        "--repeat", type=int, default=1, help="runs per engine and method; the best is shown"
+    )
     a = ap.parse_args()
     import distributed
 
@@ -167,21 +170,30 @@ def main() -> int:
         # the runs come first: a child process reports the larger of its own peak and this
         # process's size when it was forked, so this process must still be small then
         for method in [] if a.no_runs else a.methods.split(","):
-            loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
-            client.restart()
-            dk = _rank(
-                a.store,
-                out / f"dask-{method}",
-                method,
-                a.tol,
-                ["--engine", "dask", "--scheduler", cluster.scheduler_address],
-            )
-            dk["worker_rss"] = max(client.run(_worker_peak_rss).values())
-            x = np.load(out / f"local-{method}" / "scores.npy")
-            y = np.load(out / f"dask-{method}" / "scores.npy")
-            dk["bitwise"] = bool(np.array_equal(x, y))
-            dk["max_diff"] = float(np.abs(x - y).max())
-            rows += [("local", method, loc), (f"dask x{a.workers}", method, dk)]
+            best: dict[str, dict[str, Any]] = {}
+            all_equal = True
+            for _ in range(a.repeat):  # local and dask alternate, so both see similar load
+                loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
+                client.restart()
+                dk = _rank(
+                    a.store,
+                    out / f"dask-{method}",
+                    method,
+                    a.tol,
+                    ["--engine", "dask", "--scheduler", cluster.scheduler_address],
+                )
+                dk["worker_rss"] = max(client.run(_worker_peak_rss).values())
+                x = np.load(out / f"local-{method}" / "scores.npy")
+                y = np.load(out / f"dask-{method}" / "scores.npy")
+                dk["bitwise"] = bool(np.array_equal(x, y))
+                all_equal = all_equal and dk["bitwise"]
+                dk["max_diff"] = float(np.abs(x - y).max())
+                for name, r in (("local", loc), ("dask", dk)):
+                    print(json.dumps({"engine": name, "method": method, **r}), flush=True)
+                    if name not in best or r["iterate"] < best[name]["iterate"]:
+                        best[name] = r
+            best["dask"]["bitwise"] = all_equal  # every repeat, not only the fastest
+            rows += [("local", method, best["local"]), (f"dask x{a.workers}", method, best["dask"])]
             for name, _, r in rows[-2:]:
                 print(json.dumps({"engine": name, "method": method, **r}), flush=True)
         steady = (
