@@ -33,10 +33,10 @@ import numba
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
-from numba import njit, prange
 
 from .. import settings
 from ..errors import ShardrankError
+from ..kernels.partition import dedupe_sorted, number_keys, pack_edges, scatter_batch
 from ..progress import Reporter
 from ..store import layout
 from ..store.writer import StoreWriter
@@ -45,12 +45,10 @@ from .tables import Columns, arrow_reader, sql_str
 
 MAX_SPILL_FILES = 256  # destination key ranges written in the scatter pass (open files)
 RESERVE_BYTES = 384 * 2**20  # interpreter, DuckDB's streaming buffers, one Arrow batch
-BYTES_PER_EDGE = (
-    12  # while sorting: the edge as one uint64 (packed in place) + its uint32 source out
-)
-BYTES_PER_KEY = (
-    29  # presence (1) + id (4) per key of the range; degrees and their running sum (24) per node
-)
+# while sorting: the edge as one uint64 (packed in place) + its uint32 source out
+BYTES_PER_EDGE = 12
+# presence (1) + id (4) per key of the range; degrees and their running sum (24) per node
+BYTES_PER_KEY = 29
 SORT_GROUP_EDGES = 1 << 25  # edges sorted at once at most (256 MiB): one buffer, reused
 MIN_CAP_EDGES = 1 << 20  # a budget that cannot sort this many edges at once takes the SQL path
 MIN_EDGES_PER_SPILL = 1 << 16  # small inputs get few spill files
@@ -65,112 +63,6 @@ class IntPlan:
     n_rows: int  # rows DuckDB will stream (after nulls are dropped)
     cap_edges: int  # edges sorted at once
     memory: int  # the build's budget in bytes
-
-
-# --- kernels --------------------------------------------------------------------------------
-@njit(cache=True)
-def scatter_batch(
-    s, d, lo, span, shift, n_parts, drop_loops, present, out_pairs
-):  # pragma: no cover - jit
-    """Counting sort of one batch by destination key range.
-
-    Parameters
-    ----------
-    s, d : int64[m], source and destination keys
-    lo, span : int, keys must lie in ``lo .. lo + span - 1``
-    shift : int, range ``p`` holds key offsets ``p << shift .. ((p + 1) << shift) - 1``
-    n_parts : int
-    drop_loops : bool, leave out edges with ``s == d`` (their keys are still nodes)
-    present : uint8[span], set to 1 for every key seen
-    out_pairs : uint64[m], receives ``src offset << 32 | dst offset`` grouped by range
-
-    Returns
-    -------
-    int64[n_parts + 1] start of each range in ``out_pairs``, or int64[0] if a key
-    lies outside the range (the caller then measures the range and starts again).
-    """
-    m = s.shape[0]
-    starts = np.zeros(n_parts + 1, dtype=np.int64)
-    for k in range(m):
-        a = s[k] - lo
-        b = d[k] - lo
-        if a < 0 or a >= span or b < 0 or b >= span:
-            return np.zeros(0, dtype=np.int64)
-        present[a] = 1
-        present[b] = 1
-        if drop_loops and a == b:
-            continue
-        starts[(b >> shift) + 1] += 1
-    for p in range(n_parts):
-        starts[p + 1] += starts[p]
-    nxt = starts[:-1].copy()
-    for k in range(m):
-        a = s[k] - lo
-        b = d[k] - lo
-        if drop_loops and a == b:
-            continue
-        p = b >> shift
-        q = nxt[p]
-        out_pairs[q] = (np.uint64(a) << np.uint64(32)) | np.uint64(b)
-        nxt[p] = q + 1
-    return starts
-
-
-@njit(cache=True)
-def number_keys(present, ids_out):  # pragma: no cover - jit
-    """``ids_out[k]`` = number of present keys below ``k`` (the id of key ``k`` if present).
-
-    Returns the number of present keys.
-    """
-    n = 0
-    for k in range(present.shape[0]):
-        ids_out[k] = n
-        n += present[k]
-    return n
-
-
-@njit(parallel=True, cache=True)
-def pack_edges(buf, ids):  # pragma: no cover - jit
-    """Replace each ``src offset << 32 | dst offset`` in ``buf`` (uint64[m]) by
-    ``ids[dst] << 32 | ids[src]``, in place: sorting the result orders edges by (dst, src).
-    """
-    for k in prange(buf.shape[0]):
-        x = buf[k]
-        dst_off = x & np.uint64(0xFFFFFFFF)
-        src_off = x >> np.uint64(32)
-        buf[k] = (np.uint64(ids[dst_off]) << np.uint64(32)) | np.uint64(ids[src_off])
-
-
-@njit(cache=True)
-def dedupe_sorted(keys, in_deg, out_deg, src_out):  # pragma: no cover - jit
-    """Walk sorted packed edges ``dst_id << 32 | src_id``, skipping duplicates: count degrees
-    and self-loops, and write the source ids of the distinct edges, in order, to ``src_out``.
-
-    Parameters
-    ----------
-    keys : uint64[m], sorted
-    in_deg, out_deg : int64[N], incremented
-    src_out : uint32[>= m]
-
-    Returns (number of distinct edges, number of distinct self-loops).
-    """
-    w = 0
-    loops = 0
-    prev = np.uint64(0)
-    for k in range(keys.shape[0]):
-        x = keys[k]
-        if k > 0 and x == prev:
-            continue
-        prev = x
-        dd = x >> np.uint64(32)
-        ss = x & np.uint64(0xFFFFFFFF)
-        src_out[w] = ss
-        w += 1
-        in_deg[dd] += 1
-        out_deg[ss] += 1
-        if dd == ss:
-            loops += 1
-    return w, loops
 
 
 # --- planning -------------------------------------------------------------------------------
