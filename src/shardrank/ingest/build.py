@@ -28,8 +28,17 @@ from ..store.manifest import StoreManifest
 from ..store.writer import StoreWriter
 from .partition import build_integer, plan_integer_build
 from .sources import InputFile, fingerprint_inputs, resolve_inputs
-from .tables import (Columns, arrow_reader, check_same_key_types, choose_columns, describe, scan_sql,
-                     sniff_text, sql_ident, sql_str)
+from .tables import (
+    Columns,
+    arrow_reader,
+    check_same_key_types,
+    choose_columns,
+    describe,
+    scan_sql,
+    sniff_text,
+    sql_ident,
+    sql_str,
+)
 
 
 @dataclass

@@ -6,7 +6,6 @@ unweighted; 0 for a dead end); ``s`` float64[N] scaled scores ``r / w_out`` (0 a
 
 from __future__ import annotations
 
-import numpy as np
 from numba import njit, prange
 
 

@@ -71,7 +71,9 @@ class RankResult:
 
     def top(self, k: int = 10) -> list[tuple[Any, float]]:
         """The k highest scores as (key, score), ties broken by key order (= id order)."""
-        from .compare import top_ids  # argpartition alone may keep any of the nodes tied at the k-th score
+        from .compare import (
+            top_ids,  # argpartition alone may keep any of the nodes tied at the k-th score
+        )
 
         idx = top_ids(self.scores, k)
         keys = self.keys.take(pa.array(idx)).to_pylist()
