@@ -3,13 +3,13 @@
 
 Each run is `shardrank rank` in a subprocess (what a user runs), to the same --tol, for each
 method. The Dask runs use a LocalCluster this script starts (N worker processes, one thread
-each; started once and restarted between runs so each worker's peak memory is its own run's).
+each; a new one for each run, so each worker's peak memory is its own run's).
 Printed per run: iterations, iterate seconds (run.json), seconds per iteration, the ratio to
 the local engine, driver and worker peak memory, and whether the scores are bitwise equal.
 
 A second table times single steps in this process through the engine API (the engines the
-runs use): the first step (workers load the kernels and page in their shards) and the median
-of the next --steps steps, so warm-up and steady state are told apart.
+runs use): the first step (workers load the kernels and page in their shards), the best and
+median of the next --steps steps, so warm-up and steady state are told apart.
 
 usage: scripts/bench_dask.py [--store /work/bench-data/s22] [--workers 2] [--tol 1e-9]
                              [--methods power,gauss-seidel] [--out /tmp/bench-dask]
@@ -26,6 +26,8 @@ import shutil
 import subprocess
 import sys
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -118,6 +120,28 @@ def _steady(store: str, address: str, out: Path, methods: list[str], n: int) -> 
     return lines
 
 
+@contextmanager
+def _cluster(n: int) -> Iterator[tuple[Any, Any]]:
+    import distributed
+
+    t0 = time.monotonic()
+    cluster = distributed.LocalCluster(
+        n_workers=n,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address="127.0.0.1:0",
+        silence_logs=logging.ERROR,
+    )
+    client = distributed.Client(cluster, set_as_default=False)
+    client.wait_for_workers(n)
+    print(f"LocalCluster: {n} workers x 1 thread, up in {time.monotonic() - t0:.1f} s", flush=True)
+    try:
+        yield cluster, client
+    finally:
+        client.close()
+        cluster.close()
+
+
 def _load() -> str:
     return "load average " + " ".join(f"{x:.2f}" for x in os.getloadavg())
 
@@ -137,8 +161,6 @@ def main() -> int:
         "--repeat", type=int, default=1, help="runs per engine and method; the best is shown"
     )
     a = ap.parse_args()
-    import distributed
-
     from shardrank.store.urls import open_store
 
     reader = open_store(a.store)
@@ -149,32 +171,17 @@ def main() -> int:
     )
     out = Path(a.out)
     out.mkdir(parents=True, exist_ok=True)
-    t0 = time.monotonic()
-    cluster = distributed.LocalCluster(
-        n_workers=a.workers,
-        threads_per_worker=1,
-        processes=True,
-        dashboard_address="127.0.0.1:0",
-        silence_logs=logging.ERROR,
-    )
-    client = distributed.Client(cluster, set_as_default=False)
-    client.wait_for_workers(a.workers)
-    print(
-        f"LocalCluster: {a.workers} worker processes x 1 thread, "
-        f"started in {time.monotonic() - t0:.1f} s",
-        flush=True,
-    )
     rows = []
+    steady: list[str] = []
     print(_load(), flush=True)
-    try:
-        # the runs come first: a child process reports the larger of its own peak and this
-        # process's size when it was forked, so this process must still be small then
-        for method in [] if a.no_runs else a.methods.split(","):
-            best: dict[str, dict[str, Any]] = {}
-            all_equal = True
-            for _ in range(a.repeat):  # local and dask alternate, so both see similar load
-                loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
-                client.restart()
+    # the runs come first: a child process reports the larger of its own peak and this
+    # process's size when it was forked, so this process must still be small then
+    for method in [] if a.no_runs else a.methods.split(","):
+        best: dict[str, dict[str, Any]] = {}
+        all_equal = True
+        for _ in range(a.repeat):  # local and dask alternate, so both see similar load
+            loc = _rank(a.store, out / f"local-{method}", method, a.tol, [])
+            with _cluster(a.workers) as (cluster, client):  # fresh workers: their own peak
                 dk = _rank(
                     a.store,
                     out / f"dask-{method}",
@@ -183,27 +190,20 @@ def main() -> int:
                     ["--engine", "dask", "--scheduler", cluster.scheduler_address],
                 )
                 dk["worker_rss"] = max(client.run(_worker_peak_rss).values())
-                x = np.load(out / f"local-{method}" / "scores.npy")
-                y = np.load(out / f"dask-{method}" / "scores.npy")
-                dk["bitwise"] = bool(np.array_equal(x, y))
-                all_equal = all_equal and dk["bitwise"]
-                dk["max_diff"] = float(np.abs(x - y).max())
-                for name, r in (("local", loc), ("dask", dk)):
-                    print(json.dumps({"engine": name, "method": method, **r}), flush=True)
-                    if name not in best or r["iterate"] < best[name]["iterate"]:
-                        best[name] = r
-            best["dask"]["bitwise"] = all_equal  # every repeat, not only the fastest
-            rows += [("local", method, best["local"]), (f"dask x{a.workers}", method, best["dask"])]
-            for name, _, r in rows[-2:]:
+            x = np.load(out / f"local-{method}" / "scores.npy")
+            y = np.load(out / f"dask-{method}" / "scores.npy")
+            dk["bitwise"] = bool(np.array_equal(x, y))
+            all_equal = all_equal and dk["bitwise"]
+            dk["max_diff"] = float(np.abs(x - y).max())
+            for name, r in (("local", loc), ("dask", dk)):
                 print(json.dumps({"engine": name, "method": method, **r}), flush=True)
-        steady = (
-            _steady(a.store, cluster.scheduler_address, out, a.methods.split(","), a.steps)
-            if a.steps
-            else []
-        )
-    finally:
-        client.close()
-        cluster.close()
+                if name not in best or r["iterate"] < best[name]["iterate"]:
+                    best[name] = r
+        best["dask"]["bitwise"] = all_equal  # every repeat, not only the fastest
+        rows += [("local", method, best["local"]), (f"dask x{a.workers}", method, best["dask"])]
+    if a.steps:
+        with _cluster(a.workers) as (cluster, _client):
+            steady = _steady(a.store, cluster.scheduler_address, out, a.methods.split(","), a.steps)
     print()
     if rows:
         print(
