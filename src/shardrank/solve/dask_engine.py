@@ -10,6 +10,9 @@ an exchange directory on shared storage, and combines what they return::
     EXCHANGE/<session>/step-000012/fresh-000003.npy float64[n_b] block 3's fresh scaled scores
                                                                  (Gauss-Seidel only)
 
+EXCHANGE is --exchange (a shared directory or URL); without it, a directory in /dev/shm
+(memory) when every worker runs on the driver's machine, else RUN/exchange.
+
 Every file is written once, before any task that reads it is submitted, and never changed; a
 task returns its block's scores and per-chunk residual partials and writes nothing. So a retry,
 or a task run again because its worker died, returns the same bytes. The driver writes the
@@ -31,6 +34,7 @@ import logging
 import math
 import os
 import secrets
+import shutil
 import socket
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -54,6 +58,7 @@ from .problem import Problem
 
 BlockHook = Callable[[int, int], None]
 EXCHANGE_DIR = "exchange"  # inside the run directory when --exchange is not given
+SHM_DIR = "/dev/shm"  # memory-backed files: the exchange when every worker is on this machine
 CONNECT_SECONDS = 30.0  # wait for a scheduler to answer
 WORKERS_SECONDS = 120.0  # wait for the first worker to join a scheduler
 TASK_RETRIES = 2  # re-runs of a task that raised (e.g. a transient storage error)
@@ -112,6 +117,27 @@ def _connect(options: RankOptions) -> tuple[Client, LocalCluster | None]:
     return Client(cluster, set_as_default=False), cluster
 
 
+def run_tag(run_dir: Path) -> str:
+    """A name for one run's exchange directory outside the run directory."""
+    return "run-" + hashlib.sha256(str(Path(run_dir).resolve()).encode()).hexdigest()[:12]
+
+
+def _exchange(options: RankOptions, run_dir: Path, client: Client, n_nodes: int) -> urls.Location:
+    """Where the step vectors go: --exchange; else memory (tmpfs) when every worker runs on
+    this machine; else RUN/exchange, which every worker must see (shared storage)."""
+    if options.exchange:
+        # one subdirectory per run, so runs sharing an --exchange never clean up each other
+        return urls.parse_location(options.exchange).child(run_tag(run_dir))
+    shm = Path(SHM_DIR)
+    if shm.is_dir() and os.access(shm, os.W_OK):
+        # measured: step files on disk sometimes wait for writeback (0.3 s a step at scale
+        # 22); in tmpfs they never do. 4 vectors of N float64 leave room for a sweep's files
+        hosts = set(client.run(socket.gethostname).values())
+        if hosts == {socket.gethostname()} and shutil.disk_usage(shm).free > 4 * 8 * n_nodes:
+            return urls.parse_location(shm / f"shardrank-exchange-{run_tag(run_dir)}")
+    return urls.parse_location(Path(run_dir) / EXCHANGE_DIR)
+
+
 class DaskEngine:
     """Runs each shard's gather as a Dask task; see the module docstring.
 
@@ -157,14 +183,9 @@ class DaskEngine:
     def from_options(
         cls, reader: StoreReader, problem: Problem, options: RankOptions, run_dir: Path
     ) -> DaskEngine:
-        if options.exchange:
-            # one subdirectory per run, so runs sharing an --exchange never clean up each other
-            tag = hashlib.sha256(str(Path(run_dir).resolve()).encode()).hexdigest()[:12]
-            exchange = urls.parse_location(options.exchange).child(f"run-{tag}")
-        else:
-            exchange = urls.parse_location(Path(run_dir) / EXCHANGE_DIR)
         client, cluster = _connect(options)
         try:
+            exchange = _exchange(options, run_dir, client, reader.n_nodes)
             return cls(reader, problem, client, exchange, options.threads or 0, cluster)
         except BaseException:
             client.close()
