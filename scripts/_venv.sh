@@ -17,8 +17,9 @@ ensure_venv() {
   local stamp="$ROOT/.venv/.shardrank-installed$extras"
   if [ ! -f "$stamp" ] || [ "$ROOT/pyproject.toml" -nt "$stamp" ]; then
     echo "installing shardrank$extras into .venv (first run only) ..." >&2
-    "$ROOT/.venv/bin/python" -m pip install --quiet --upgrade pip >&2
-    "$ROOT/.venv/bin/python" -m pip install --quiet -e "$ROOT$extras" >&2
+    # (some machines' pip config names local indexes that may be absent: hide only those warnings)
+    "$ROOT/.venv/bin/python" -m pip install --quiet --upgrade pip 2>&1 | { grep -v '^WARNING: Location' || true; } >&2
+    "$ROOT/.venv/bin/python" -m pip install --quiet -e "$ROOT$extras" 2>&1 | { grep -v '^WARNING: Location' || true; } >&2
     touch "$stamp"
   fi
 }
