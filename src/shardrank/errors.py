@@ -10,6 +10,7 @@ and turns them into an exit code. Anything else that escapes is a bug and keeps 
     +-- NotConvergedError         exit 3   the run stopped at --max-iter before reaching --tol
     +-- DamagedDataError          exit 4   a store, run or checkpoint failed verification
     +-- GuardFailedError          exit 5   a refresh result failed a publishing guard
+    +-- EngineLostError           exit 6   the distributed engine lost its cluster; resumable
     +-- BusyError                 exit 75  another process holds the lock (EX_TEMPFAIL)
 """
 
@@ -54,6 +55,12 @@ class GuardFailedError(ShardrankError):
     exit_code = 5
 
 
+class EngineLostError(ShardrankError):
+    """The distributed engine lost its scheduler or workers mid-run; the checkpoints are intact."""
+
+    exit_code = 6
+
+
 class BusyError(ShardrankError):
     """Another shardrank process holds the lock; try again later."""
 
@@ -67,6 +74,7 @@ EXIT_CODES: dict[int, str] = {
     3: "not converged within --max-iter: the run is saved with its error bound",
     4: "damaged data: a store, run or checkpoint failed verification",
     5: "a refresh result failed a publishing guard: kept, not published",
+    6: "the distributed engine lost its cluster: restart it, then `shardrank resume RUN`",
     75: "busy: another process holds the lock; try again later",
     130: "interrupted (Ctrl-C): resume with `shardrank resume RUN`",
 }

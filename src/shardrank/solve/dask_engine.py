@@ -48,7 +48,7 @@ from distributed.comm.core import CommClosedError
 from distributed.scheduler import KilledWorker
 
 from .. import settings
-from ..errors import BadInputError, ShardrankError
+from ..errors import BadInputError, EngineLostError
 from ..kernels import n_chunks, scale_range
 from ..store import urls
 from ..store.reader import StoreReader
@@ -296,13 +296,13 @@ class DaskEngine:
         try:
             yield
         except KilledWorker as e:
-            raise ShardrankError(
+            raise EngineLostError(
                 f"dask: a task killed its worker repeatedly ({e})",
                 hint="give workers more memory (see docs/scale-out.md), then "
                 "`shardrank resume RUN` continues from the last checkpoint",
             ) from None
         except (FutureCancelledError, CommClosedError) as e:
-            raise ShardrankError(
+            raise EngineLostError(
                 f"dask: lost the cluster in step {self.step} ({type(e).__name__}: {e})",
                 hint="restart the scheduler and workers, then `shardrank resume RUN "
                 "--scheduler ADDRESS` continues from the last checkpoint",
