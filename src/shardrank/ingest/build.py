@@ -141,6 +141,17 @@ def _remove_stale_partials(out: Path, reporter: Reporter) -> None:
         if pid != os.getpid() and not _pid_alive(pid):
             reporter.event("cleanup", f"removing {p.name} left by an interrupted build")
             shutil.rmtree(p, ignore_errors=True)
+    # an --overwrite killed between its two renames leaves the old store aside; drop it only
+    # once a store is in place again (until then it is the only copy, and is left for the user)
+    if (out / layout.MANIFEST).is_file():
+        for p in layout.replaced_siblings(out):
+            try:
+                pid = int(p.name.rsplit("-", 1)[1])
+            except ValueError:
+                continue
+            if pid != os.getpid() and not _pid_alive(pid):
+                reporter.event("cleanup", f"removing {p.name}, a store replaced by an interrupted --overwrite")
+                shutil.rmtree(p, ignore_errors=True)
 
 
 def build_store(

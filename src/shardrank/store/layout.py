@@ -45,6 +45,13 @@ def partial_dir(final: Path, pid: int) -> Path:
     return final.parent / f".{final.name}.partial-{pid}"
 
 
+def replaced_siblings(final: Path) -> list[Path]:
+    """Earlier stores moved aside by an --overwrite publish (``.NAME.old-PID``, any pid)."""
+    if not final.parent.exists():
+        return []
+    return sorted(final.parent.glob(f".{final.name}.old-*"))
+
+
 def stale_partials(final: Path) -> list[Path]:
     """Temporary siblings of ``final`` left by earlier builds (any pid)."""
     if not final.parent.exists():
