@@ -127,31 +127,34 @@ def _pid_alive(pid: int) -> bool:
         os.kill(pid, 0)
     except ProcessLookupError:
         return False
-    except PermissionError:
-        return True
+    except PermissionError:  # alive, owned by someone else
+        pass
     return True
 
 
-def _remove_stale_partials(out: Path, reporter: Reporter) -> None:
-    for p in layout.stale_partials(out):
+def _left_by_dead_builds(paths: list[Path]) -> list[Path]:
+    """Siblings named ``...-PID`` whose process is gone (never this process's own)."""
+    dead = []
+    for p in paths:
         try:
             pid = int(p.name.rsplit("-", 1)[1])
         except ValueError:
             continue
         if pid != os.getpid() and not _pid_alive(pid):
-            reporter.event("cleanup", f"removing {p.name} left by an interrupted build")
-            shutil.rmtree(p, ignore_errors=True)
+            dead.append(p)
+    return dead
+
+
+def _remove_stale_partials(out: Path, reporter: Reporter) -> None:
+    for p in _left_by_dead_builds(layout.stale_partials(out)):
+        reporter.event("cleanup", f"removing {p.name} left by an interrupted build")
+        shutil.rmtree(p, ignore_errors=True)
     # an --overwrite killed between its two renames leaves the old store aside; drop it only
     # once a store is in place again (until then it is the only copy, and is left for the user)
     if (out / layout.MANIFEST).is_file():
-        for p in layout.replaced_siblings(out):
-            try:
-                pid = int(p.name.rsplit("-", 1)[1])
-            except ValueError:
-                continue
-            if pid != os.getpid() and not _pid_alive(pid):
-                reporter.event("cleanup", f"removing {p.name}, a store replaced by an interrupted --overwrite")
-                shutil.rmtree(p, ignore_errors=True)
+        for p in _left_by_dead_builds(layout.replaced_siblings(out)):
+            reporter.event("cleanup", f"removing {p.name}, a store replaced by an interrupted --overwrite")
+            shutil.rmtree(p, ignore_errors=True)
 
 
 def build_store(
