@@ -149,3 +149,20 @@ def test_invariants_refuse_broken_vectors(bad: np.ndarray) -> None:
 
 def test_invariants_accept_a_distribution() -> None:
     assert check_invariants(np.array([0.25, 0.25, 0.5]), 1) == 1.0
+
+
+@pytest.mark.parametrize(
+    ("bad", "words"),
+    [(float("nan"), "non-finite"), (float("inf"), "non-finite"), (-0.1, "negative")],
+)
+def test_invariants_reject_nan_inf_and_negative_scores(bad: float, words: str) -> None:
+    from shardrank.errors import DamagedDataError
+    from shardrank.solve.driver import check_invariants
+
+    r = np.full(4, 0.25)
+    r[2] = bad
+    with pytest.raises(DamagedDataError, match=words):
+        check_invariants(r, 7)
+    with pytest.raises(DamagedDataError, match="not 1"):
+        check_invariants(np.full(4, 0.3), 7)
+    assert check_invariants(np.full(4, 0.25), 7) == 1.0
