@@ -10,6 +10,7 @@ from pathlib import Path
 
 from ..errors import BadInputError
 from ..store import layout
+from ..store.atomic import sha256_file
 
 PARQUET_EXT = (".parquet", ".parq", ".pq")
 TEXT_EXT = (".csv", ".tsv", ".txt", ".edges", ".el")
@@ -136,13 +137,8 @@ def fingerprint_inputs(files: list[InputFile], options: dict[str, object]) -> di
     digests = []
     total = 0
     for f in files:
-        h = hashlib.sha256()
-        with open(f.path, "rb") as fh:
-            for chunk in iter(lambda: fh.read(1 << 22), b""):
-                h.update(chunk)
-        size = f.path.stat().st_size
-        total += size
-        digests.append(h.hexdigest())
+        total += f.path.stat().st_size
+        digests.append(sha256_file(f.path))
     top = hashlib.sha256()
     for d in sorted(digests):
         top.update(d.encode())
