@@ -95,7 +95,8 @@ def test_new_keys_start_at_their_teleport_value_and_vanished_keys_are_dropped(
         new,
         tmp_path / "one",
         RankOptions(
-            max_iter=1, tol=1e-12, teleport=str(tele), init=str(tmp_path / "prev"), threads=1
+            max_iter=1, tol=1e-12, teleport=str(tele), init=str(tmp_path / "prev"), threads=1,
+            method="power",
         ),
     )
     x0 = v.copy()  # new keys start at their teleport value ...

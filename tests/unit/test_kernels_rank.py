@@ -6,7 +6,7 @@ import numba
 import numpy as np
 import pytest
 
-from shardrank.kernels import gather_block, gather_block_fresh, n_chunks, scale_range
+from shardrank.kernels import gather_block, n_chunks, scale_range
 
 
 def naive_scale(
@@ -34,20 +34,17 @@ def _csr(
     return offsets, sources.astype(id_dtype)
 
 
-def naive_gather(offsets, sources, weights, s, w_out, first, d, add_u, add_t, v, chunk, r, fresh):  # type: ignore[no-untyped-def]
+def naive_gather(offsets, sources, weights, s, first, d, add_u, add_t, v, chunk, r):  # type: ignore[no-untyped-def]
     r = r.copy()
     n_rows = offsets.size - 1
     res = []
     for a in range(0, n_rows, chunk):
-        lo = first + a
         acc_res = 0.0
         for j in range(a, min(a + chunk, n_rows)):
             g = first + j
             acc = 0.0
             for e in range(offsets[j], offsets[j + 1]):
-                i = int(sources[e])
-                x = r[i] / w_out[i] if fresh and lo <= i < g else s[i]
-                acc += (weights[e] if weights.size else 1.0) * x
+                acc += (weights[e] if weights.size else 1.0) * s[int(sources[e])]
             y = d * acc + add_u + (add_t * v[j] if v.size else 0.0)
             acc_res += abs(y - r[g])
             r[g] = y
@@ -78,27 +75,19 @@ def test_scale_range_matches_its_definition(chunk: int) -> None:
 @pytest.mark.parametrize("weighted", [False, True])
 @pytest.mark.parametrize("teleport", [False, True])
 @pytest.mark.parametrize("chunk", [1, 4, 4096])
-@pytest.mark.parametrize("fresh", [False, True])
-def test_gather_matches_its_definition(
-    id_dtype: str, weighted: bool, teleport: bool, chunk: int, fresh: bool
-) -> None:
-    rng = np.random.default_rng(hash((id_dtype, weighted, teleport, chunk, fresh)) % 2**32)
+def test_gather_matches_its_definition(id_dtype: str, weighted: bool, teleport: bool, chunk: int) -> None:
+    rng = np.random.default_rng(hash((id_dtype, weighted, teleport, chunk)) % 2**32)
     n, first, n_rows = 60, 20, 25
     offsets, sources = _csr(rng, n, first, n_rows, id_dtype)
     weights = rng.uniform(0.1, 2.0, sources.size) if weighted else np.empty(0)
     v = rng.uniform(0, 1, n_rows) if teleport else np.empty(0)
     r = rng.uniform(0, 1, n)
-    w_out = rng.uniform(0.5, 3.0, n)  # no dead ends among sources (a dead end is never a source)
-    s = r / w_out
-    args = (offsets, sources, weights, s)
-    consts = (first, 0.85, 0.01, 0.15 if teleport else 0.0, v, chunk)
+    s = r / rng.uniform(0.5, 3.0, n)
+    args = (offsets, sources, weights, s, first, 0.85, 0.01, 0.15 if teleport else 0.0, v, chunk)
     got = r.copy()
     res = np.zeros(n_chunks(n_rows, chunk))
-    if fresh:
-        gather_block_fresh(*args, w_out, *consts, got, res)
-    else:
-        gather_block(*args, *consts, got, res)
-    want, want_res = naive_gather(*args, w_out, *consts, r, fresh)
+    gather_block(*args, got, res)
+    want, want_res = naive_gather(*args, r)
     np.testing.assert_allclose(got, want, rtol=1e-15, atol=0)
     np.testing.assert_allclose(res, want_res, rtol=1e-14, atol=0)
     assert np.array_equal(got[:first], r[:first]) and np.array_equal(
@@ -106,30 +95,12 @@ def test_gather_matches_its_definition(
     )
 
 
-def test_fresh_reads_only_its_own_chunk() -> None:
-    """Row j reads the new score of an earlier row of its chunk, the old one across chunks:
-    three rows in a chain 0 -> 1 -> 2 (global ids), chunk 2: rows {0, 1} and {2}."""
-    offsets = np.array([0, 0, 1, 2], dtype=np.int64)  # row 0 no in-links, row 1 <- 0, row 2 <- 1
-    sources = np.array([0, 1], dtype="<u4")
-    r = np.array([0.5, 0.3, 0.2])
-    w_out = np.array([1.0, 1.0, 1.0])
-    s = r / w_out
-    res = np.zeros(2)
-    out = r.copy()
-    gather_block_fresh(
-        offsets, sources, np.empty(0), s, w_out, 0, 0.5, 0.1, 0.0, np.empty(0), 2, out, res
-    )
-    assert out[0] == 0.1  # no in-links
-    assert out[1] == 0.5 * 0.1 + 0.1  # fresh: row 0 is earlier in the same chunk
-    assert out[2] == 0.5 * 0.3 + 0.1  # stale: row 1 is in another chunk (chunks run in parallel)
-
-
 def test_kernels_are_bitwise_identical_for_any_thread_count() -> None:
     rng = np.random.default_rng(3)
     n, n_rows, chunk = 40_000, 40_000, 4096
     offsets, sources = _csr(rng, n, 0, n_rows, "<u4")
     weights = rng.uniform(0.1, 2.0, sources.size)
-    w_out = rng.uniform(0.5, 3.0, n)
+    w_out = rng.uniform(0.5, 3.0, n) * (rng.uniform(0, 1, n) < 0.8)
     r = rng.uniform(0, 1, n)
     before = numba.get_num_threads()
     outs = []
@@ -139,27 +110,12 @@ def test_kernels_are_bitwise_identical_for_any_thread_count() -> None:
             s = np.empty(n)
             dead = np.zeros(n_chunks(n, chunk))
             scale_range(r, w_out, 0, n, chunk, s, dead)
-            a, b = r.copy(), r.copy()
-            res_a, res_b = np.zeros(n_chunks(n_rows, chunk)), np.zeros(n_chunks(n_rows, chunk))
+            a = r.copy()
+            res_a = np.zeros(n_chunks(n_rows, chunk))
             gather_block(
                 offsets, sources, weights, s, 0, 0.85, 1e-6, 0.0, np.empty(0), chunk, a, res_a
             )
-            gather_block_fresh(
-                offsets,
-                sources,
-                weights,
-                s,
-                w_out,
-                0,
-                0.85,
-                1e-6,
-                0.0,
-                np.empty(0),
-                chunk,
-                b,
-                res_b,
-            )
-            outs.append([x.tobytes() for x in (s, dead, a, res_a, b, res_b)])
+            outs.append([x.tobytes() for x in (s, dead, a, res_a)])
     finally:
         numba.set_num_threads(before)
     assert outs[0] == outs[1]

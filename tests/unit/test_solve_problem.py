@@ -97,10 +97,8 @@ def _state(k: int) -> IterState:
     return IterState(
         iteration=k,
         residuals=[0.1] * k,
-        bounds=[None] * k,
+        bounds=[1.25e-10 * j for j in range(k)],
         steps=["power"] * k,
-        verify_threshold=1.25e-10,
-        pending_verify=k % 2 == 0,
     )
 
 
@@ -148,7 +146,7 @@ def test_a_torn_checkpoint_directory_is_ignored_and_cleaned(tmp_path: Path) -> N
     write_checkpoint(tmp_path, np.full(5, 0.2), _state(2), {})
     assert not torn.exists()
     state = json.loads((tmp_path / "checkpoints" / "iter-000002" / "state.json").read_text())
-    assert state["state"]["verify_threshold"] == 1.25e-10  # floats survive JSON exactly
+    assert state["state"]["bounds"][1] == 1.25e-10  # floats survive JSON exactly
 
 
 # ---- engine threads -----------------------------------------------------------------------------

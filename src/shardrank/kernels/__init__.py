@@ -6,6 +6,6 @@ caller adds in chunk order. The chunking does not depend on the thread count, so
 bitwise identical for any ``--threads``.
 """
 
-from .rank import gather_block, gather_block_fresh, n_chunks, scale_range
+from .rank import gather_block, n_chunks, scale_range
 
-__all__ = ["gather_block", "gather_block_fresh", "n_chunks", "scale_range"]
+__all__ = ["gather_block", "n_chunks", "scale_range"]

@@ -69,7 +69,7 @@ def to_svg(fig: Figure, name: str, label: str) -> str:
 
 
 def convergence(history: dict[str, Sequence[Any]], tol: float) -> str:
-    """Residual of every step and the guaranteed L1 error bound where a power step measured it."""
+    """Residual of every step and the guaranteed L1 error bound each step measured."""
     res = np.array([np.nan if v is None else v for v in history.get("residual", [])], dtype=float)
     bnd = np.array(
         [np.nan if v is None else v for v in history.get("error_bound", [])], dtype=float

@@ -256,9 +256,9 @@ def write_report(
                 plots.convergence(
                     res.summary.get("history", {}), float(res.summary.get("tol", 0) or 0)
                 ),
-                "Each step's change (residual) falls roughly geometrically. The run stops only "
-                "when a power step proves the L1 distance to the exact scores is below the "
-                "tolerance (diamonds).",
+                "Each step's change (residual) falls roughly geometrically. Every step proves an "
+                "upper bound on the L1 distance to the exact scores (diamonds); the run stops "
+                "when that bound is below the tolerance.",
             ),
         ),
         page.section(4, "distribution", "Score distribution", _distribution(curves)),

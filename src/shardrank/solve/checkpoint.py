@@ -31,10 +31,8 @@ class IterState:
 
     iteration: int = 0
     residuals: list[float] = field(default_factory=list)  # the measured L1 change per iteration
-    bounds: list[float | None] = field(default_factory=list)  # guaranteed bound (verified steps)
+    bounds: list[float | None] = field(default_factory=list)  # guaranteed bound per iteration
     steps: list[str] = field(default_factory=list)  # "power" | "gauss-seidel"
-    pending_verify: bool = False
-    verify_threshold: float = 0.0
     converged: bool = False
     error_bound: float | None = None
     iterate_seconds: float = 0.0

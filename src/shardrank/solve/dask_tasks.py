@@ -23,7 +23,7 @@ import numba
 import numpy as np
 
 from ..errors import DamagedDataError
-from ..kernels import gather_block, gather_block_fresh, n_chunks
+from ..kernels import gather_block, n_chunks
 from ..store import urls
 from ..store.reader import Shard, StoreReader
 
@@ -198,28 +198,23 @@ def sweep_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
     """Gauss-Seidel update of block ``t``, seeing the fresh scores of every block before it."""
     _set_threads(job.threads or _default_threads(sweep=True))
     step = urls.parse_location(job.step_dir)
-    reader = _reader(job)
-    offsets, sources, w = _arrays(reader.shard(t.index))
+    offsets, sources, w = _arrays(_reader(job).shard(t.index))
     s = _sweep_vector(job, step, t.index)
-    w_out = np.asarray(reader.out_weight())
-    # the kernel indexes r_inout by global id but touches only this block's rows, so a
-    # full-length buffer costs only the pages of the block (np.empty commits no memory)
-    r_full = np.empty(job.n_nodes, dtype=np.float64)
-    r_full[t.first : t.first + t.n_nodes] = _vector(step_file(step, "r", t.index))
+    r_block = np.array(_vector(step_file(step, "r", t.index)), dtype=np.float64)
     part = np.zeros(n_chunks(t.n_nodes, job.chunk))
-    gather_block_fresh(
+    # the same kernel as a power step, reading a vector in which blocks < t are fresh
+    gather_block(
         offsets,
         sources,
         w,
         s,
-        w_out,
-        t.first,
+        0,
         job.damping,
         t.add_uniform,
         t.add_teleport,
         _teleport_block(t),
         job.chunk,
-        r_full,
+        r_block,
         part,
     )
-    return r_full[t.first : t.first + t.n_nodes].copy(), part
+    return r_block, part

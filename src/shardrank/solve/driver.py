@@ -1,15 +1,26 @@
-"""The iteration driver: chooses each step, measures the error bound, checks invariants,
-and calls the checkpoint hook. Engine-agnostic.
+"""The iteration driver: runs steps, measures the error bound, checks invariants, and calls
+the checkpoint hook. Engine-agnostic.
 
-Error bound. G is column-stochastic and a contraction by d in L1 on vectors summing to 0, so
-for any x with sum 1 and y = G x::
+Error bound. G is column-stochastic and, on vectors summing to 0, a contraction by d in L1, so
+for any x with sum 1::
 
-    ||x - x*||_1 <= ||y - x||_1 / (1 - d)    and    ||y - x*||_1 <= d / (1 - d) * ||y - x||_1
+    ||x - x*||_1 <= ||G x - x||_1 / (1 - d)
 
-The driver returns y renormalised to sum 1; renormalising moves it by |sum(y) - 1| in L1, which
-is added to the bound. Only a power step measures ||G x - x||, so only power steps can declare
-convergence. The Gauss-Seidel method runs sweeps while their change is large and a verifying
-power step when the sweep change suggests the tolerance is reached.
+Every step, power or Gauss-Seidel, certifies its own output. A step reads a vector x (sum 1)
+and writes z (sum sigma, not renormalised yet); each row j of z is computed as row j of G'
+applied to a vector u_j whose entries are either x_i (not yet recomputed) or z_i (fresh), where
+G' u = d P u + d (dead-end mass of u) v + (1 - d) v. A power step has u_j = x for all j. So
+(G' z - z)_j = row j of G'_lin applied to (z - u_j), whose entries are 0 or z_i - x_i, and
+since every column of G'_lin = d P + d v a^T sums to at most d::
+
+    ||G' z - z||_1 <= d ||z - x||_1 = d * change
+
+Renormalising, x' = z / sigma: G x' - x' = ((G' z - z) + (1 - d)(sigma - 1) v) / sigma, hence::
+
+    ||x' - x*||_1 <= (d / (1 - d) * change + |sigma - 1|) / sigma
+
+which the driver records as the step's bound and stops on. For a power step sigma is 1 up to
+rounding and this is the familiar d / (1 - d) * ||G x - x||_1.
 """
 
 from __future__ import annotations
@@ -89,15 +100,12 @@ def _iterate(
 ) -> IterState:
     d, tol = opts.damping, opts.tol
     gain = d / (1.0 - d)
-    if state.verify_threshold == 0.0:
-        state.verify_threshold = tol / gain
     every = opts.checkpoint_every
     last_ckpt = time.monotonic()
     t_start = time.monotonic() - state.iterate_seconds
     while state.iteration < opts.max_iter and not state.converged:
         k = state.iteration + 1
-        # the last allowed step always measures, so a run that stops early still has a bound
-        power = opts.method == "power" or state.pending_verify or k == opts.max_iter
+        power = opts.method == "power"
 
         def on_block(i: int, n: int, k: int = k) -> None:
             rep.progress(f"iteration {k}", i + 1, n, "blocks")
@@ -109,28 +117,16 @@ def _iterate(
         total = float(np.sum(r))
         r /= total
         check_invariants(r, k)
-        bound = gain * change + abs(total - 1.0) if power else None
+        bound = (gain * change + abs(total - 1.0)) / total
         state.iteration = k
         state.residuals.append(change)
         state.bounds.append(bound)
         state.steps.append("power" if power else "gauss-seidel")
-        if bound is not None and bound <= tol:
-            state.converged, state.error_bound = True, bound
-        elif bound is not None:
-            state.error_bound = bound
-            if opts.method != "power":
-                # the sweep change misjudged the bound: wait for a proportionally smaller change
-                state.verify_threshold *= max(tol / bound, 1e-3)
-                state.pending_verify = False
-        else:
-            # the verifying power step measures about what the next sweep would change, so judge
-            # by this change times the latest contraction ratio (saves a sweep per run)
-            prev = state.residuals[-2] if len(state.residuals) > 1 else 0.0
-            ratio = min(1.0, change / prev) if prev > 0 else 1.0
-            state.pending_verify = change * ratio <= state.verify_threshold
+        state.error_bound = bound
+        if bound <= tol:
+            state.converged = True
         state.iterate_seconds = time.monotonic() - t_start
-        shown = f"{bound:.3e}" if bound is not None else f"~{gain * change:.3e}"
-        rep.progress("ranking", k, opts.max_iter, "iterations", bound=shown)
+        rep.progress("ranking", k, opts.max_iter, "iterations", bound=f"{bound:.3e}")
         now = time.monotonic()
         due = (every is not None and k % every == 0) or (every is None and now - last_ckpt >= opts.checkpoint_seconds)
         if checkpoint and due and not state.converged:

@@ -18,7 +18,7 @@ import numpy as np
 
 from .. import settings
 from ..errors import BadInputError
-from ..kernels import gather_block, gather_block_fresh, n_chunks, scale_range
+from ..kernels import gather_block, n_chunks, scale_range
 from ..store import layout
 from ..store.reader import Shard, StoreReader
 from .options import RankOptions
@@ -105,7 +105,7 @@ class LocalEngine:
             finally:
                 os.close(fd)
 
-    def _gather(self, r: np.ndarray, i: int, dead_mass: float, fresh: bool = False) -> float:
+    def _gather(self, r: np.ndarray, i: int, dead_mass: float) -> float:
         b = self.blocks[i]
         sh = self._shard(i)
         if hasattr(os, "posix_fadvise"):
@@ -116,12 +116,8 @@ class LocalEngine:
         v = self._no_v if tele.uniform else tele.fill_block(b.first_node, b.n_nodes, self._v_buf)
         w = self._no_w if sh.weights is None else np.asarray(sh.weights)
         part = self._res_parts[i]
-        if fresh:
-            gather_block_fresh(np.asarray(sh.offsets), np.asarray(sh.sources), w, self.s, self.w_out,
-                               b.first_node, self.problem.damping, add_u, add_t, v, self.chunk, r, part)
-        else:
-            gather_block(np.asarray(sh.offsets), np.asarray(sh.sources), w, self.s, b.first_node,
-                         self.problem.damping, add_u, add_t, v, self.chunk, r, part)
+        gather_block(np.asarray(sh.offsets), np.asarray(sh.sources), w, self.s, b.first_node,
+                     self.problem.damping, add_u, add_t, v, self.chunk, r, part)
         return math.fsum(part)
 
     def power_step(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
@@ -135,10 +131,15 @@ class LocalEngine:
         return math.fsum(res)
 
     def gauss_seidel_sweep(self, r: np.ndarray, on_block: BlockHook | None = None) -> float:
+        # Block Gauss-Seidel: a block's rows are computed from the vector as it stands (rows of
+        # the same block see each other's old values), then the block is rescaled at once, so
+        # every later block reads its fresh scores. Rows never read fresh rows of their own
+        # block: that keeps the result independent of the thread schedule, and within a block
+        # it is a tiny share of all reads.
         dead = [self._scale_block(r, i) for i in range(len(self.blocks))]
         res = []
         for i in range(len(self.blocks)):
-            res.append(self._gather(r, i, math.fsum(dead), fresh=True))
+            res.append(self._gather(r, i, math.fsum(dead)))
             dead[i] = self._scale_block(r, i)  # block i's fresh scores feed the blocks after it
             if on_block:
                 on_block(i, len(self.blocks))
