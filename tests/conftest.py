@@ -13,6 +13,7 @@ import pytest
 
 import shardrank
 from shardrank import BuildOptions
+from shardrank.store.slots import ids_by_slot
 
 
 def write_edges(path: Path, src: Sequence[Any], dst: Sequence[Any], weight: Sequence[float] | None = None,
@@ -69,7 +70,8 @@ def random_graph(rng: np.random.Generator, n: int, m: int) -> tuple[np.ndarray, 
 def read_store_csr(store: Path) -> tuple[list[Any], np.ndarray, np.ndarray, np.ndarray | None]:
     """(keys in id order, indptr, indices, weights) of the in-edge CSR read straight from the shards.
 
-    Row j holds the sources of destination j; built from StoreReader.shard(i) block by block.
+    Row j holds the source ids of destination j, ascending; built from StoreReader.shard(i)
+    block by block and the store's read slots.
     """
     r = shardrank.open_store(store)
     indptr = [np.zeros(1, dtype=np.int64)]
@@ -84,7 +86,19 @@ def read_store_csr(store: Path) -> tuple[list[Any], np.ndarray, np.ndarray, np.n
         if sh.weights is not None:
             weights.append(np.asarray(sh.weights))
     w = np.concatenate(weights) if r.weighted else None
-    return r.keys().to_pylist(), np.concatenate(indptr), np.concatenate(indices), w
+    ptr, idx = np.concatenate(indptr), np.concatenate(indices)
+    slot = r.read_slot()
+    if slot is not None:
+        # the shards hold read slots (store/slots.py): back to ids, each row sorted by id again
+        import scipy.sparse as sp
+
+        idx = ids_by_slot(np.asarray(slot))[idx]
+        m = sp.csr_matrix((w if w is not None else np.ones(idx.size), idx, ptr),
+                          shape=(r.n_nodes, r.n_nodes))
+        m.sort_indices()
+        ptr, idx = m.indptr.astype(np.int64), m.indices.astype(np.int64)
+        w = m.data if w is not None else None
+    return r.keys().to_pylist(), ptr, idx, w
 
 
 def reference_csr(src: Sequence[Any], dst: Sequence[Any], weight: Sequence[float] | None = None,

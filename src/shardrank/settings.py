@@ -7,7 +7,7 @@ from __future__ import annotations
 
 # --- store format -------------------------------------------------------------------------------
 STORE_FORMAT = "shardrank-store"  # manifest "format" field
-STORE_FORMAT_VERSION = 1  # bump on any incompatible change; readers refuse newer versions
+STORE_FORMAT_VERSION = 2  # bump on any incompatible change; readers refuse newer versions
 RUN_FORMAT = "shardrank-run"
 RUN_FORMAT_VERSION = 1
 

@@ -27,6 +27,7 @@ KINDS = [
     "out_degree.npy",
     "in_degree.npy",
     "out_weight.npy",
+    "read_slot.npy",
     "shards/block-000001.offsets.npy",
     "shards/block-000001.sources.npy",
     "shards/block-000001.weights.npy",
@@ -188,3 +189,38 @@ def test_directory_without_manifest_is_not_a_store(
     (store / "manifest.json").unlink()
     assert main(["inspect", str(store)]) == 4
     assert "not a shardrank store" in capsys.readouterr().err
+
+
+def _rewrite_consistently(store: Path, name: str, arr: np.ndarray) -> None:
+    """Replace a file and fix its size and checksum in the manifest (and the manifest's own)."""
+    from shardrank.store.atomic import sha256_file
+    from shardrank.store.manifest import FileInfo, encode_manifest, read_manifest
+
+    m = read_manifest(store)
+    np.save(store / name, arr, allow_pickle=False)
+    m.files[name] = FileInfo(bytes=(store / name).stat().st_size, sha256=sha256_file(store / name))
+    m.fingerprint = m.compute_fingerprint()
+    (store / "manifest.json").write_bytes(encode_manifest(m))
+    shardrank.open_store(store)  # the manifest itself is consistent
+
+
+def test_read_slots_that_are_no_permutation_are_caught(
+    store: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    slot = np.load(store / "read_slot.npy", allow_pickle=False)
+    slot[1] = slot[0]  # two nodes in one slot
+    _rewrite_consistently(store, "read_slot.npy", slot)
+    assert "permutation" in _verify_fails(store, "read_slot.npy", capsys)
+
+
+def test_swapped_read_slots_are_caught_by_the_degrees(
+    store: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # still a permutation, but two nodes with different out-degrees trade their slots: the
+    # shards now credit each one's out-links to the other
+    slot = np.load(store / "read_slot.npy", allow_pickle=False)
+    deg = np.load(store / "out_degree.npy", allow_pickle=False)
+    a, b = int(np.argmax(deg)), int(np.argmin(deg))
+    slot[[a, b]] = slot[[b, a]]
+    _rewrite_consistently(store, "read_slot.npy", slot)
+    _verify_fails(store, "out_degree.npy", capsys)

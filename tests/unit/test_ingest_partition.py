@@ -16,6 +16,7 @@ import pytest
 import scipy.sparse as sp
 
 import shardrank
+from tests.conftest import read_store_csr
 from shardrank import BuildOptions
 from shardrank.ingest import build as build_mod
 from shardrank.ingest import partition
@@ -39,6 +40,7 @@ def _store_arrays(path: Path) -> dict[str, np.ndarray]:
         "out_degree": np.array(r.out_degree()),
         "in_degree": np.array(r.in_degree()),
         "out_weight": np.array(r.out_weight()),
+        "read_slot": np.array(r.read_slot()),
     }
     for i in range(r.n_blocks):
         sh = r.shard(i)
@@ -99,8 +101,8 @@ def test_same_store_as_sql_path(
     d_id = np.array([ids[int(x)] for x in dst[keep]], dtype=np.int64)
     csr = sp.csr_matrix((np.ones(s_id.shape[0]), (d_id, s_id)), shape=(len(ids), len(ids)))
     csr.sum_duplicates()
-    got_src = np.concatenate([a[f"sources{i}"] for i in range(len(fast.blocks))]).astype(np.int64)
-    assert np.array_equal(got_src, csr.indices)
+    _, got_ptr, got_src, _ = read_store_csr(tmp_path / "fast")
+    assert np.array_equal(got_ptr, csr.indptr) and np.array_equal(got_src, csr.indices)
     assert np.array_equal(a["in_degree"], np.diff(csr.indptr))
 
 

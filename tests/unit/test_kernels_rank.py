@@ -10,14 +10,15 @@ from shardrank.kernels import gather_block, n_chunks, scale_range
 
 
 def naive_scale(
-    r: np.ndarray, w_out: np.ndarray, lo: int, hi: int, chunk: int
+    r: np.ndarray, w_out: np.ndarray, slot: np.ndarray, lo: int, hi: int, chunk: int
 ) -> tuple[np.ndarray, list[float]]:
     s = np.full(r.size, -1.0)
     dead = []
     for a in range(lo, hi, chunk):
         acc = 0.0
         for i in range(a, min(a + chunk, hi)):
-            s[i] = r[i] / w_out[i] if w_out[i] > 0 else 0.0
+            k = int(slot[i]) if slot.size else i
+            s[k] = r[i] / w_out[i] if w_out[i] > 0 else 0.0
             acc += r[i] if w_out[i] == 0 else 0.0
         dead.append(acc)
     return s, dead
@@ -57,17 +58,19 @@ def test_n_chunks() -> None:
 
 
 @pytest.mark.parametrize("chunk", [1, 3, 64])
-def test_scale_range_matches_its_definition(chunk: int) -> None:
+@pytest.mark.parametrize("slots", [None, "<u2", "<u4", "<u8"])
+def test_scale_range_matches_its_definition(chunk: int, slots: str | None) -> None:
     rng = np.random.default_rng(chunk)
     n = 50
     r = rng.uniform(0, 1, n)
     w_out = rng.uniform(0.5, 3, n) * (rng.uniform(0, 1, n) < 0.7)  # ~30% dead ends
+    slot = np.empty(0, dtype="<u4") if slots is None else rng.permutation(n).astype(slots)
     lo, hi = 7, 45
     s = np.full(n, -1.0)
     dead = np.zeros(n_chunks(hi - lo, chunk))
-    scale_range(r, w_out, lo, hi, chunk, s, dead)
-    want_s, want_dead = naive_scale(r, w_out, lo, hi, chunk)
-    assert np.array_equal(s, want_s)  # outside lo:hi untouched (-1)
+    scale_range(r, w_out, slot, lo, hi, chunk, s, dead)
+    want_s, want_dead = naive_scale(r, w_out, slot, lo, hi, chunk)
+    assert np.array_equal(s, want_s)  # slots of ids outside lo:hi untouched (-1)
     assert np.array_equal(dead, want_dead)
 
 
@@ -102,6 +105,7 @@ def test_kernels_are_bitwise_identical_for_any_thread_count() -> None:
     weights = rng.uniform(0.1, 2.0, sources.size)
     w_out = rng.uniform(0.5, 3.0, n) * (rng.uniform(0, 1, n) < 0.8)
     r = rng.uniform(0, 1, n)
+    rng_slot = rng.permutation(n).astype("<u4")
     before = numba.get_num_threads()
     outs = []
     try:
@@ -109,7 +113,7 @@ def test_kernels_are_bitwise_identical_for_any_thread_count() -> None:
             numba.set_num_threads(threads)
             s = np.empty(n)
             dead = np.zeros(n_chunks(n, chunk))
-            scale_range(r, w_out, 0, n, chunk, s, dead)
+            scale_range(r, w_out, rng_slot, 0, n, chunk, s, dead)
             a = r.copy()
             res_a = np.zeros(n_chunks(n_rows, chunk))
             gather_block(

@@ -436,7 +436,7 @@ def _write(
     w.write_array(layout.IN_DEGREE, in_deg)
     # always written: the rank kernel memory-maps it (the out-degree as float64 when unweighted)
     w.write_array(layout.OUT_WEIGHT, out_w if out_w is not None else out_deg.astype(np.float64))
-    w.begin_shards(in_deg)
+    w.begin_shards(in_deg, out_deg)
     n_edges = counts.pop("edges")
     wsel = ", w" if weighted else ""
     with _watch(con, rep, "sorting edges by destination"):

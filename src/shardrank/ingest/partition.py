@@ -342,7 +342,7 @@ def build_integer(
         w.write_array(layout.OUT_DEGREE, out_deg)
         w.write_array(layout.IN_DEGREE, in_deg)
         w.write_array(layout.OUT_WEIGHT, out_deg.astype(np.float64))
-        w.begin_shards(in_deg)
+        w.begin_shards(in_deg, out_deg)
         _stream_sorted(sorted_path, w, in_deg, n_edges, rep)
         w.finish_shards()
         if w.n_edges != n_edges:

@@ -1,11 +1,13 @@
 """The two kernels of a PageRank sweep: scale scores by out-weight, and gather one block.
 
 Notation: ``r`` float64[N] scores (sum 1); ``w_out`` float64[N] out-weight (out-degree when
-unweighted; 0 for a dead end); ``s`` float64[N] scaled scores ``r / w_out`` (0 at dead ends).
+unweighted; 0 for a dead end); ``s`` float64[N] scaled scores ``r / w_out`` (0 at dead ends),
+laid out by read slot (``store/slots.py``): the shards' sources index ``s`` by slot.
 """
 
 from __future__ import annotations
 
+import numpy as np
 from numba import njit, prange
 
 
@@ -16,28 +18,32 @@ def n_chunks(n_rows: int, chunk: int) -> int:
 
 
 @njit(parallel=True, cache=True)
-def scale_range(r, w_out, lo, hi, chunk, s_out, dead_partial_out):  # pragma: no cover - jit
-    """Scale ``r[lo:hi]`` by out-weight into ``s_out[lo:hi]``; dead-end mass per chunk.
+def scale_range(r, w_out, slot, lo, hi, chunk, s_out, dead_partial_out):  # pragma: no cover - jit
+    """Scale ``r[lo:hi]`` by out-weight into the read slots of ``s_out``; dead-end mass per chunk.
 
     Parameters
     ----------
     r, w_out : float64[N]
+    slot : uint[N], the read slot of each node (see ``store/slots.py``); empty: slot = id
     lo, hi : int, the index range
     chunk : int, rows per chunk
-    s_out : float64[N], written on ``lo:hi``: ``s[i] = r[i] / w_out[i]``, 0 where ``w_out == 0``
+    s_out : float64[N], ``s[slot[i]] = r[i] / w_out[i]`` (0 where ``w_out == 0``) for i in lo:hi;
+        a permutation, so no two rows write the same element
     dead_partial_out : float64[n_chunks(hi - lo, chunk)], sum of ``r[i]`` over dead ends per chunk
     """
     nc = (hi - lo + chunk - 1) // chunk
+    by_slot = slot.shape[0] > 0
     for c in prange(nc):
         a = lo + c * chunk
         b = min(a + chunk, hi)
         acc = 0.0
         for i in range(a, b):
+            k = np.int64(slot[i]) if by_slot else i
             w = w_out[i]
             if w > 0.0:
-                s_out[i] = r[i] / w
+                s_out[k] = r[i] / w
             else:
-                s_out[i] = 0.0
+                s_out[k] = 0.0
                 acc += r[i]
         dead_partial_out[c] = acc
 
@@ -61,9 +67,9 @@ def gather_block(
     Parameters
     ----------
     offsets : int64[n_rows + 1], block-local CSR offsets
-    sources : uint16/uint32/uint64[n_edges], global source ids
+    sources : uint16/uint32/uint64[n_edges], the sources' read slots (index into ``s``)
     weights : float64[n_edges] or float64[0]
-    s : float64[N], scaled scores (only read)
+    s : float64[N], scaled scores by read slot (only read)
     first : int, global id of row 0
     damping, add_uniform, add_teleport : float
     v_block : float64[n_rows] or float64[0], the teleport distribution on this block

@@ -5,10 +5,10 @@ one shard (one destination block). Per step the driver (this process) scales the
 exactly as :class:`~shardrank.solve.engine.LocalEngine` does, writes what the tasks read into
 an exchange directory on shared storage, and combines what they return::
 
-    EXCHANGE/<session>/step-000012/s.npy            float64[N]   scaled scores r / w_out
+    EXCHANGE/<session>/step-000012/s.npy            float64[N]   scaled scores r / w_out by slot
     EXCHANGE/<session>/step-000012/r-000003.npy     float64[n_b] block 3's scores before the step
     EXCHANGE/<session>/step-000012/fresh-000003.npy float64[n_b] block 3's fresh scaled scores
-                                                                 (Gauss-Seidel only)
+                                                                 in id order (Gauss-Seidel only)
 
 EXCHANGE is --exchange (a shared directory or URL); without it, a directory in /dev/shm
 (memory) when every worker runs on the driver's machine, else RUN/exchange.
@@ -161,7 +161,9 @@ class DaskEngine:
         self.chunk = settings.ROW_CHUNK
         self.blocks = reader.manifest.blocks
         self.w_out = np.asarray(reader.out_weight())
-        self.s = np.empty(reader.n_nodes, dtype=np.float64)
+        slot = reader.read_slot()
+        self.slot = np.empty(0, dtype=np.uint32) if slot is None else np.asarray(slot)
+        self.s = np.empty(reader.n_nodes, dtype=np.float64)  # scaled scores, by read slot
         self.r_next = np.empty(reader.n_nodes, dtype=np.float64)
         self._dead_parts = [np.zeros(n_chunks(b.n_nodes, self.chunk)) for b in self.blocks]
         self.session = f"{socket.gethostname()}-{os.getpid()}-{secrets.token_hex(4)}"
@@ -229,7 +231,8 @@ class DaskEngine:
     def _scale_block(self, r: np.ndarray, i: int) -> float:
         b = self.blocks[i]
         part = self._dead_parts[i]
-        scale_range(r, self.w_out, b.first_node, b.first_node + b.n_nodes, self.chunk, self.s, part)
+        scale_range(r, self.w_out, self.slot, b.first_node, b.first_node + b.n_nodes, self.chunk,
+                    self.s, part)
         return math.fsum(part)
 
     def _begin_step(self, r: np.ndarray) -> tuple[urls.Location, StepJob]:
@@ -357,9 +360,10 @@ class DaskEngine:
                 self.r_next, i
             )  # block i's fresh scores feed the blocks after it
             if i + 1 < len(self.blocks):
-                _write_vector(
-                    step_file(step_dir, "fresh", i), self.s[b.first_node : b.first_node + b.n_nodes]
-                )
+                # the block's fresh scaled scores in id order; a task puts them at their slots
+                ids = slice(b.first_node, b.first_node + b.n_nodes)
+                fresh = self.s[self.slot[ids]] if self.slot.size else self.s[ids]
+                _write_vector(step_file(step_dir, "fresh", i), fresh)
             if on_block:
                 on_block(i, len(self.blocks))
         r[:] = self.r_next

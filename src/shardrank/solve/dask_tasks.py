@@ -186,9 +186,14 @@ def _sweep_vector(job: StepJob, step: urls.Location, block: int) -> np.ndarray:
         if entry is None or entry[1] > block:
             entry = (np.array(_vector(step_file(step, "s")), dtype=np.float64), 0)
         s, applied = entry
+        slot = _reader(job).read_slot()
         for i in range(applied, block):
             fresh = _vector(step_file(step, "fresh", i))
-            s[job.firsts[i] : job.firsts[i] + fresh.shape[0]] = fresh
+            ids = slice(job.firsts[i], job.firsts[i] + fresh.shape[0])
+            if slot is None:
+                s[ids] = fresh
+            else:
+                s[np.asarray(slot[ids], dtype=np.int64)] = fresh
         _SWEEP.clear()  # one sweep at a time: older steps are finished
         _SWEEP[job.step_dir] = (s, block)
         return s

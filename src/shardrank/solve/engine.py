@@ -44,8 +44,8 @@ class Engine(Protocol):
 class LocalEngine:
     """Streams the shards of one store through the kernels, block by block, in block order.
 
-    Memory: ``r`` (the caller's) and ``s`` are float64[N]; out-weights are memory-mapped;
-    one block-sized teleport buffer when the teleport is not uniform.
+    Memory: ``r`` (the caller's) and ``s`` are float64[N]; out-weights and read slots are
+    memory-mapped; one block-sized teleport buffer when the teleport is not uniform.
     """
 
     name = "local"
@@ -58,7 +58,9 @@ class LocalEngine:
         numba.set_num_threads(min(threads, cores) if threads else cores)
         self.threads = numba.get_num_threads()
         self.w_out = np.asarray(reader.out_weight())
-        self.s = np.empty(reader.n_nodes, dtype=np.float64)
+        slot = reader.read_slot()
+        self.slot = np.empty(0, dtype=np.uint32) if slot is None else np.asarray(slot)
+        self.s = np.empty(reader.n_nodes, dtype=np.float64)  # scaled scores, by read slot
         self.chunk = settings.ROW_CHUNK
         self.blocks = reader.manifest.blocks
         self._v_buf = np.empty(0 if problem.teleport.uniform else max(b.n_nodes for b in self.blocks))
@@ -86,7 +88,8 @@ class LocalEngine:
     def _scale_block(self, r: np.ndarray, i: int) -> float:
         b = self.blocks[i]
         part = self._dead_parts[i]
-        scale_range(r, self.w_out, b.first_node, b.first_node + b.n_nodes, self.chunk, self.s, part)
+        scale_range(r, self.w_out, self.slot, b.first_node, b.first_node + b.n_nodes, self.chunk,
+                    self.s, part)
         return math.fsum(part)
 
     def _prefetch(self, i: int) -> None:
@@ -150,6 +153,7 @@ class LocalEngine:
         # results: the run's peak memory is then the iteration's, not iteration plus output
         self.s = np.empty(0, dtype=np.float64)
         self.w_out = np.empty(0, dtype=np.float64)
+        self.slot = np.empty(0, dtype=np.uint32)
         self._shards.clear()
 
 

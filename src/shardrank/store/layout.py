@@ -8,8 +8,10 @@
       out_degree.npy                      int64[N]   out-links per node (after normalisation)
       in_degree.npy                       int64[N]   in-links per node
       out_weight.npy                      float64[N] sum of out-link weights (or out-degree)
+      read_slot.npy                       uint16|uint32|uint64[N] read slot of each id (v2+)
       shards/block-000000.offsets.npy     int64[n_b + 1]  CSR row offsets, block-local
-      shards/block-000000.sources.npy     uint16|uint32|uint64[e_b]  source ids, sorted per row
+      shards/block-000000.sources.npy     uint16|uint32|uint64[e_b]  sources' read slots
+                                          (v1: ids), ascending per row (see store/slots.py)
       shards/block-000000.weights.npy     float64[e_b]  edge weights (weighted stores only)
 """
 
@@ -22,6 +24,7 @@ NODES = "nodes.parquet"
 OUT_DEGREE = "out_degree.npy"
 IN_DEGREE = "in_degree.npy"
 OUT_WEIGHT = "out_weight.npy"
+READ_SLOT = "read_slot.npy"
 SHARD_DIR = "shards"
 
 

@@ -25,8 +25,9 @@ _DAMAGE_HINT = (
 class Shard:
     """One block's in-edges in CSR form, memory-mapped.
 
-    ``offsets``: int64[n_nodes + 1], block-local; ``sources``: uint16/32/64[n_edges], global
-    source ids sorted within each row; ``weights``: float64[n_edges] or None.
+    ``offsets``: int64[n_nodes + 1], block-local; ``sources``: uint16/32/64[n_edges], the
+    sources' read slots (:mod:`.slots`; ids in a version-1 store), ascending within each row;
+    ``weights``: float64[n_edges] or None.
     """
 
     info: BlockInfo
@@ -124,6 +125,18 @@ class StoreReader:
     def out_weight(self) -> np.ndarray:
         """float64[N] total out-weight (unweighted: the out-degree as float64), memory-mapped."""
         return _load_npy(self.path / layout.OUT_WEIGHT, "out_weight")
+
+    def read_slot(self) -> np.ndarray | None:
+        """uint[N] read slot of each node id, memory-mapped (see :mod:`.slots`); None for a
+        version-1 store, whose shards hold ids (slot = id)."""
+        if self.manifest.version < 2:
+            return None
+        if layout.READ_SLOT not in self.manifest.files:
+            raise DamagedDataError(
+                f"{self.path / layout.MANIFEST}: lists no {layout.READ_SLOT} (required since "
+                "format version 2)", hint=_DAMAGE_HINT,
+            )
+        return _load_npy(self.path / layout.READ_SLOT, "read_slot")
 
     def shard(self, index: int) -> Shard:
         info = self.manifest.blocks[index]

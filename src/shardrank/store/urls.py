@@ -35,7 +35,7 @@ from .reader import Shard, StoreReader
 # where a driver keeps its mirror of stores at non-local URLs: one directory per fingerprint
 CACHE_ENV = "SHARDRANK_CACHE_DIR"
 DEFAULT_CACHE = Path("~/.cache/shardrank/stores")
-HEAD_FILES = (layout.NODES, layout.OUT_DEGREE, layout.IN_DEGREE, layout.OUT_WEIGHT)
+HEAD_FILES = (layout.NODES, layout.OUT_DEGREE, layout.IN_DEGREE, layout.OUT_WEIGHT, layout.READ_SLOT)
 _COPY_CHUNK = 1 << 22  # bytes per read while streaming a file
 
 
@@ -253,7 +253,15 @@ class StoreMirror(StoreReader):
         path = (cache or cache_root()) / m.fingerprint[:32]
         path.mkdir(parents=True, exist_ok=True)
         if not (path / layout.MANIFEST).is_file():
-            write_bytes_atomic(path / layout.MANIFEST, raw)
+            # several processes (the Dask workers of one machine) may open the same store at
+            # once: each writes its own temporary file, and the renames replace equal bytes
+            tmp = path / f"{layout.MANIFEST}.partial-{os.getpid()}-{threading.get_ident()}"
+            try:
+                write_bytes_atomic(tmp, raw)
+                os.replace(tmp, path / layout.MANIFEST)
+            finally:
+                tmp.unlink(missing_ok=True)
+            fsync_dir(path)
         return cls(path, m, loc)
 
     def ensure(self, name: str) -> Path:
@@ -310,6 +318,11 @@ class StoreMirror(StoreReader):
     def out_weight(self) -> Any:
         self.ensure(layout.OUT_WEIGHT)
         return super().out_weight()
+
+    def read_slot(self) -> Any:
+        if layout.READ_SLOT in self.manifest.files:
+            self.ensure(layout.READ_SLOT)
+        return super().read_slot()
 
     def keys(self) -> Any:
         self.ensure(layout.NODES)

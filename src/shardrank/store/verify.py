@@ -21,8 +21,9 @@ def verify_store(
 ) -> dict[str, int]:
     """Check every checksum, then every structural invariant. Raise DamagedDataError.
 
-    Invariants: offsets start at 0, are non-decreasing and end at the block's edge count;
-    source ids are in range and strictly increasing within each row (no duplicate edges);
+    Invariants: the read slots are a permutation of 0..N-1 (format version 2 on); offsets
+    start at 0, are non-decreasing and end at the block's edge count; sources are in range and
+    strictly increasing within each row (no duplicate edges);
     weights are positive and finite; the stored in/out degrees (and out-weights) equal what
     the shards imply; nodes.parquet holds ids 0..N-1 in order with unique keys.
     """
@@ -35,6 +36,18 @@ def verify_store(
     in_deg = np.asarray(reader.in_degree())
     if in_deg.shape != (n,):
         raise _fail(reader.path / layout.IN_DEGREE, f"has shape {in_deg.shape}, expected ({n},)")
+    slot = reader.read_slot()
+    if slot is not None:
+        p_slot = reader.path / layout.READ_SLOT
+        if slot.dtype.str != m.source_dtype or slot.shape != (n,):
+            raise _fail(p_slot, f"dtype/shape {slot.dtype.str}{slot.shape}, expected {m.source_dtype}({n},)")
+        seen = np.zeros(n, dtype=bool)
+        if int(slot.max()) >= n:
+            raise _fail(p_slot, f"slot {int(slot.max())} out of range (N = {n})")
+        seen[slot] = True
+        if not seen.all():
+            raise _fail(p_slot, "is not a permutation of 0..N-1 (two nodes share a slot)")
+        del seen
     for b in m.blocks:
         if progress:
             progress(f"structure of block {b.index}", b.index, len(m.blocks))
@@ -55,7 +68,7 @@ def verify_store(
             )
         if b.n_edges:
             if int(src.max()) >= n:
-                raise _fail(p_src, f"source id {int(src.max())} out of range (N = {n})")
+                raise _fail(p_src, f"source {int(src.max())} out of range (N = {n})")
             # strictly increasing within a row: a drop is allowed only where a new row starts
             d = np.diff(src.astype(np.int64))
             row_start = np.zeros(b.n_edges, dtype=bool)
@@ -76,6 +89,11 @@ def verify_store(
                 raise _fail(p_w, "weights must be positive and finite")
             if b.n_edges:
                 w_implied += np.bincount(src, weights=w, minlength=n)
+    if slot is not None:
+        # the counts above are by slot; node id i's are at slot[i]
+        out_implied = out_implied[slot]
+        if w_implied is not None:
+            w_implied = w_implied[slot]
     out_deg = np.asarray(reader.out_degree())
     if not np.array_equal(out_deg, out_implied):
         raise _fail(

@@ -1,7 +1,8 @@
 """Write a store into a temporary directory, block by block, then publish it atomically.
 
-The caller streams edges sorted by (destination, source); the writer cuts them into blocks,
-hashes every byte as it writes, and writes manifest.json last.
+The caller streams edges sorted by destination (then source id); the writer turns source ids
+into read slots (see :mod:`shardrank.store.slots`), sorts each row by slot, cuts the rows into
+blocks, hashes every byte as it writes, and writes manifest.json last.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ from typing import IO, Any
 
 import numpy as np
 
+from ..kernels.slots import relabel_rows
 from . import layout
 from .atomic import (
     HashingWriter,
@@ -23,6 +25,7 @@ from .atomic import (
     write_npy_atomic,
 )
 from .manifest import BlockInfo, FileInfo, StoreManifest, encode_manifest
+from .slots import slot_order
 
 
 class _StreamFile:
@@ -72,6 +75,9 @@ class StoreWriter:
         self._cur = -1
         self._src: _StreamFile | None = None
         self._wgt: _StreamFile | None = None
+        self._slot: np.ndarray | None = None
+        # the last row of the previous batch: the next batch may continue it
+        self._tail: tuple[np.ndarray, np.ndarray, np.ndarray | None] | None = None
         self.n_edges = 0
 
     # -- whole arrays --------------------------------------------------------------------------
@@ -85,8 +91,11 @@ class StoreWriter:
         self.files[name] = FileInfo(bytes=p.stat().st_size, sha256=sha256_file(p))
 
     # -- shards --------------------------------------------------------------------------------
-    def begin_shards(self, in_degree: np.ndarray) -> None:
-        """Fix block boundaries and write every block's offsets (from the in-degrees)."""
+    def begin_shards(self, in_degree: np.ndarray, out_degree: np.ndarray) -> None:
+        """Write the read slots (from the out-degrees) and every block's offsets (from the
+        in-degrees), which fixes the block boundaries."""
+        self._slot = slot_order(out_degree, self.source_dtype)
+        self.write_array(layout.READ_SLOT, self._slot)
         n, bn = self.n_nodes, self.block_nodes
         for i, first in enumerate(range(0, n, bn)):
             deg = in_degree[first : first + bn]
@@ -114,25 +123,49 @@ class StoreWriter:
             self._wgt = None
 
     def add_edges(self, dst: np.ndarray, src: np.ndarray, weight: np.ndarray | None) -> None:
-        """Append a batch of edges; batches must arrive sorted by (dst, src)."""
+        """Append a batch of edges (source ids); batches must arrive sorted by destination."""
+        if self._tail is not None:
+            td, ts, tw = self._tail
+            dst, src = np.concatenate([td, dst]), np.concatenate([ts, src])
+            weight = None if weight is None or tw is None else np.concatenate([tw, weight])
+            self._tail = None
         if dst.shape[0] == 0:
             return
+        # hold back the batch's last row (its edges may go on in the next batch)
+        cut = int(np.searchsorted(dst, dst[-1], side="left"))
+        self._tail = (dst[cut:].copy(), src[cut:].copy(), None if weight is None else weight[cut:].copy())
+        self._write_rows(dst[:cut], src[:cut], None if weight is None else weight[:cut])
+
+    def _write_rows(self, dst: np.ndarray, src: np.ndarray, weight: np.ndarray | None) -> None:
+        """Write whole rows: sources become slots, sorted within each row."""
+        m = dst.shape[0]
+        if m == 0:
+            return
+        assert self._slot is not None, "begin_shards() first"
+        row_ptr = np.concatenate([[0], np.flatnonzero(np.diff(dst)) + 1, [m]]).astype(np.int64)
+        slots = np.empty(m, dtype=self.source_dtype)
+        w_in = np.empty(0) if weight is None else np.ascontiguousarray(weight, dtype=np.float64)
+        w_sorted = np.empty(w_in.shape[0])
+        relabel_rows(row_ptr, np.ascontiguousarray(src), self._slot, w_in, slots, w_sorted)
         blk = dst // self.block_nodes
         # cut the batch where the block changes (dst is sorted, so blk is too)
         cuts = np.flatnonzero(np.diff(blk)) + 1
         starts = np.concatenate([[0], cuts])
-        ends = np.concatenate([cuts, [dst.shape[0]]])
+        ends = np.concatenate([cuts, [m]])
         for s, e in zip(starts.tolist(), ends.tolist(), strict=True):
             b = int(blk[s])
             while self._cur < b:
                 self._open_block(self._cur + 1)
             assert self._src is not None
-            self._src.write(src[s:e])
+            self._src.write(slots[s:e])
             if self._wgt is not None and weight is not None:
-                self._wgt.write(weight[s:e])
-        self.n_edges += int(dst.shape[0])
+                self._wgt.write(w_sorted[s:e])
+        self.n_edges += m
 
     def finish_shards(self) -> None:
+        if self._tail is not None:
+            self._write_rows(*self._tail)
+            self._tail = None
         while self._cur < len(self.blocks) - 1:
             self._open_block(self._cur + 1)
         self._close_block()

@@ -1,0 +1,43 @@
+"""numba kernel of the store writer: turn a run of rows' source ids into sorted read slots.
+
+Arrays in, arrays out; no files. See ``store/slots.py`` for what a read slot is.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+
+@njit(parallel=True, cache=True)
+def relabel_rows(row_ptr, src, slot, weights, src_out, weights_out):  # pragma: no cover - jit
+    """Replace every source id by its slot and sort each row by slot (weights follow).
+
+    Parameters
+    ----------
+    row_ptr : int64[n_rows + 1], row r holds edges ``row_ptr[r] .. row_ptr[r + 1] - 1``
+    src : uint[n_edges], source ids (any order within a row)
+    slot : uint[N], the read slot of every node id
+    weights : float64[n_edges] or float64[0] (unweighted)
+    src_out : uint[n_edges], receives the slots, ascending within each row
+    weights_out : float64[n_edges] or float64[0], receives the weights in the same order
+    """
+    n_rows = row_ptr.shape[0] - 1
+    has_w = weights.shape[0] > 0
+    for r in prange(n_rows):
+        a = row_ptr[r]
+        b = row_ptr[r + 1]
+        if b - a == 0:
+            continue
+        mapped = np.empty(b - a, dtype=np.int64)
+        for e in range(a, b):
+            mapped[e - a] = slot[src[e]]
+        if has_w:
+            order = np.argsort(mapped)
+            for k in range(b - a):
+                src_out[a + k] = mapped[order[k]]
+                weights_out[a + k] = weights[a + order[k]]
+        else:
+            mapped.sort()
+            for k in range(b - a):
+                src_out[a + k] = mapped[k]
