@@ -1,0 +1,511 @@
+"""Patch a store with a delta of edges: a new store equal to a full build of the new edge set.
+
+The edge set of an unweighted store is a set of (source, destination) key pairs. A delta is two
+lists of edge tables, ADD and REMOVE (Parquet or CSV, read like build inputs). The patched edge
+set is ``(old - REMOVE) | ADD``: a removed edge that is also added stays, removing an edge the
+store does not hold is counted, not an error, and the store's self-loop rule applies to ADD.
+Nodes are the keys of the patched edges: a key left without any edge vanishes, keys of added
+edges appear, and ids stay in key order. The result is what ``shardrank build`` of the new
+edge set writes, byte for byte in every ``.npy`` file (docs/delta.md).
+
+How, in bounded memory (the delta, O(N) vectors and one chunk of edges, never the edge list):
+
+1. read the delta with DuckDB; map its keys to old ids (a binary search of the old keys);
+2. look the delta's pairs up in the old shards (a binary search within each row), which
+   settles the edges really removed and really added, hence the new degrees and the nodes
+   that vanish or appear; the old-id -> new-id map is monotone;
+3. walk the new ids in chunks of about ``CHUNK_EDGES`` edges: the old rows of the chunk
+   (old slots -> old ids -> new ids), minus the removed pairs, merged with the chunk's added
+   pairs, into the :class:`StoreWriter` (which computes the read slots exactly as a build);
+4. publish atomically like a build (temporary sibling, manifest last, rename).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import shutil
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import duckdb
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from .. import settings
+from ..errors import BadInputError, ShardrankError
+from ..progress import Reporter
+from ..store import layout, urls
+from ..store.manifest import StoreManifest
+from ..store.reader import StoreReader
+from ..store.slots import ids_by_slot
+from ..store.writer import StoreWriter
+from .build import BuildOptions, _checked_width, _publish, _remove_stale_partials
+from .sources import InputFile, fingerprint_inputs, resolve_inputs
+from .tables import arrow_table, check_same_key_types, choose_columns, describe, scan_sql, sniff_text, sql_ident
+
+CHUNK_EDGES = 1 << 21  # edges of the new store handled at once (about 100 MiB of temporaries)
+_LOW = np.uint64(0xFFFFFFFF)
+
+
+@dataclass
+class _Pairs:
+    """A delta side: distinct (src, dst) pairs as indices into the sorted delta keys, packed
+    ``dst << 32 | src`` (uint64, ascending), and how many rows it had."""
+
+    packed: np.ndarray
+    rows: int
+    loop_rows: int = 0
+
+
+def _split(packed: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(dst, src) as int64 from packed ``dst << 32 | src``."""
+    return (packed >> np.uint64(32)).astype(np.int64), (packed & _LOW).astype(np.int64)
+
+
+def _pack(dst: np.ndarray, src: np.ndarray) -> np.ndarray:
+    return (dst.astype(np.uint64) << np.uint64(32)) | src.astype(np.uint64)
+
+
+# -- refusing what a patch cannot reproduce --------------------------------------------------------
+def _check_store(r: StoreReader) -> None:
+    m, where = r.manifest, r.path
+    hint = "build the new store in full with `shardrank build`"
+    if m.version < 2:
+        raise BadInputError(f"{where}: store format version {m.version} cannot be patched (read slots "
+                            "arrived in version 2)", hint=f"rebuild it once with this shardrank; {hint}")
+    if m.weighted:
+        raise BadInputError(f"{where}: a weighted store cannot be patched (only unweighted edge sets)",
+                            hint=hint)
+    if m.options.get("nodes"):
+        raise BadInputError(f"{where}: was built with --nodes (extra isolated nodes a patch cannot "
+                            "track)", hint=hint)
+    if m.n_nodes >= 2**32:
+        raise BadInputError(f"{where}: {m.n_nodes:,} nodes; a patch handles fewer than 2^32", hint=hint)
+
+
+# -- reading the delta -----------------------------------------------------------------------------
+def _read_side(con: duckdb.DuckDBPyConnection, files: list[InputFile], m: StoreManifest,
+               src: str, dst: str, header: str) -> pa.Table:
+    """The (s, d) key columns of one side of the delta, validated like build inputs."""
+    where = str(files[0].path) if len(files) == 1 else f"delta files ({files[0].path}, ...)"
+    files = sniff_text(con, files, header, [src, dst])
+    cols = choose_columns(describe(con, files), where, src, dst, None)
+    check_same_key_types(con, files, cols)
+    if cols.key_type != m.key_type:
+        kind = {"int64": "integer", "string": "text"}
+        raise BadInputError(
+            f"{where}: {kind[cols.key_type]} keys, but the store has {kind[m.key_type]} keys",
+            hint="a delta must use the store's key type (cast the key columns)")
+    key_sql = "BIGINT" if m.key_type == "int64" else "VARCHAR"
+    sql = (f"SELECT CAST({sql_ident(cols.src)} AS {key_sql}) AS s, "
+           f"CAST({sql_ident(cols.dst)} AS {key_sql}) AS d FROM {scan_sql(files)}")
+    try:
+        t = arrow_table(con, sql)
+    except duckdb.Error as e:
+        raise BadInputError(f"{where}: cannot be read ({str(e).splitlines()[0]})",
+                            hint="check that every delta file is complete and holds keys of one type") from None
+    for name, col in (("s", cols.src), ("d", cols.dst)):
+        if t.column(name).null_count:
+            # name the first file holding a null key in this column
+            bad = next((f for f in files if con.execute(
+                f"SELECT count(*) FROM {scan_sql([f])} WHERE {sql_ident(col)} IS NULL").fetchall()[0][0]),
+                files[0])
+            raise BadInputError(
+                f"{bad.path}: {t.column(name).null_count:,} rows have a null '{col}'",
+                hint="a delta edge needs both keys: remove those rows from the delta")
+    return t
+
+
+def _read_delta(paths: Sequence[str | os.PathLike[str]], m: StoreManifest, src: str, dst: str,
+                header: str, threads: int | None) -> tuple[list[InputFile], pa.Table]:
+    if not paths:
+        empty = pa.array([], type=pa.int64() if m.key_type == "int64" else pa.string())
+        return [], pa.table({"s": empty, "d": empty})
+    files = resolve_inputs([str(p) for p in paths])
+    con = duckdb.connect()
+    try:
+        if threads:
+            con.execute(f"SET threads = {int(threads)}")
+        return files, _read_side(con, files, m, src, dst, header)
+    finally:
+        con.close()
+
+
+# -- keys ------------------------------------------------------------------------------------------
+def _as_keys(a: pa.ChunkedArray | pa.Array, key_type: str) -> Any:
+    """Keys as a searchable array: int64 numpy for integer keys, an Arrow string array else."""
+    if isinstance(a, pa.ChunkedArray):
+        a = a.combine_chunks()
+    if key_type == "int64":
+        return np.asarray(a.to_numpy(zero_copy_only=False), dtype=np.int64)
+    return a.cast(pa.large_string())
+
+
+def _count_below(sorted_keys: Any, q: Any, key_type: str) -> np.ndarray:
+    """For each key of ``q``, how many of ``sorted_keys`` are smaller (a batched binary search;
+    Arrow compares strings byte by byte, the order of a build's ids)."""
+    if key_type == "int64":
+        return np.searchsorted(sorted_keys, q, side="left").astype(np.int64)
+    lo = np.zeros(len(q), dtype=np.int64)
+    hi = np.full(len(q), len(sorted_keys), dtype=np.int64)
+    while True:
+        act = np.flatnonzero(lo < hi)
+        if act.size == 0:
+            return lo
+        mid = (lo[act] + hi[act]) // 2
+        less = pc.less(pc.take(sorted_keys, pa.array(mid)), pc.take(q, pa.array(act)))
+        lt = np.asarray(less.to_numpy(zero_copy_only=False), dtype=bool)
+        lo[act] = np.where(lt, mid + 1, lo[act])
+        hi[act] = np.where(lt, hi[act], mid)
+
+
+def _equal_at(sorted_keys: Any, pos: np.ndarray, q: Any, key_type: str) -> np.ndarray:
+    """Whether ``sorted_keys[pos[i]] == q[i]`` (False where ``pos`` is past the end)."""
+    ok = pos < len(sorted_keys)
+    idx = np.flatnonzero(ok)
+    if key_type == "int64":
+        ok[idx] = sorted_keys[pos[idx]] == q[idx]
+    elif idx.size:
+        eq = pc.equal(pc.take(sorted_keys, pa.array(pos[idx])), pc.take(q, pa.array(idx)))
+        ok[idx] = np.asarray(eq.to_numpy(zero_copy_only=False), dtype=bool)
+    return ok
+
+
+def _unique_keys(t_add: pa.Table, t_rem: pa.Table, key_type: str) -> tuple[Any, list[np.ndarray]]:
+    """The delta's distinct keys, sorted, and each key column as indices into them."""
+    cols = [t.column(c) for t in (t_add, t_rem) for c in ("s", "d")]
+    if key_type == "int64":
+        arrs = [_as_keys(c, key_type) for c in cols]
+        uniq, inv = np.unique(np.concatenate(arrs), return_inverse=True)
+        bounds = np.cumsum([0] + [a.shape[0] for a in arrs])
+        return uniq, [inv[bounds[i]:bounds[i + 1]].astype(np.int64) for i in range(4)]
+    allk = pa.concat_arrays([_as_keys(c, key_type) for c in cols])
+    uniq = pc.unique(allk)
+    uniq = pc.take(uniq, pc.sort_indices(uniq))
+    return uniq, [np.asarray(pc.index_in(_as_keys(c, key_type), value_set=uniq), dtype=np.int64)
+                  for c in cols]
+
+
+def _distinct(d: np.ndarray, s: np.ndarray) -> np.ndarray:
+    return np.unique(_pack(d, s))
+
+
+# -- looking pairs up in the old shards ------------------------------------------------------------
+def _present(r: StoreReader, slot: np.ndarray, dst: np.ndarray, src: np.ndarray) -> np.ndarray:
+    """Whether each old-id pair (src -> dst) is an edge of the old store (a binary search of the
+    source's read slot within the destination's row; rows are ascending by slot)."""
+    found = np.zeros(dst.shape[0], dtype=bool)
+    if dst.shape[0] == 0:
+        return found
+    bn = r.manifest.block_nodes
+    blk = dst // bn
+    order = np.argsort(blk, kind="stable")
+    bounds = np.searchsorted(blk[order], np.arange(r.n_blocks + 1))
+    for b in np.flatnonzero(np.diff(bounds)).tolist():
+        idx = order[bounds[b]:bounds[b + 1]]
+        sh = r.shard(b)
+        off = np.asarray(sh.offsets)
+        local = dst[idx] - sh.info.first_node
+        lo, end = off[local].copy(), off[local + 1]
+        hi = end.copy()
+        target = slot[src[idx]].astype(np.int64)
+        while True:
+            act = np.flatnonzero(lo < hi)
+            if act.size == 0:
+                break
+            mid = (lo[act] + hi[act]) // 2
+            lt = sh.sources[mid].astype(np.int64) < target[act]
+            lo[act] = np.where(lt, mid + 1, lo[act])
+            hi[act] = np.where(lt, hi[act], mid)
+        ok = lo < end
+        hit = np.zeros(idx.shape[0], dtype=bool)
+        hit[ok] = sh.sources[lo[ok]].astype(np.int64) == target[ok]
+        found[idx] = hit
+    return found
+
+
+def _old_rows(r: StoreReader, oa: int, ob: int, id_of_slot: np.ndarray) -> np.ndarray:
+    """Old source ids of the in-edges of old destinations ``oa .. ob - 1``, row after row."""
+    bn = r.manifest.block_nodes
+    parts = []
+    for b in range(oa // bn, (ob - 1) // bn + 1 if ob > oa else oa // bn):
+        sh = r.shard(b)
+        first = sh.info.first_node
+        a, z = max(oa, first) - first, min(ob, first + sh.info.n_nodes) - first
+        parts.append(id_of_slot[np.asarray(sh.sources[int(sh.offsets[a]):int(sh.offsets[z])])])
+    return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
+
+
+# -- the patch -------------------------------------------------------------------------------------
+def patch_store(
+    old: str | os.PathLike[str],
+    out: str | os.PathLike[str],
+    add: Sequence[str | os.PathLike[str]] = (),
+    remove: Sequence[str | os.PathLike[str]] = (),
+    overwrite: bool = False,
+    reporter: Reporter | None = None,
+    src: str | None = None,
+    dst: str | None = None,
+    threads: int | None = None,
+) -> StoreManifest:
+    """Write at ``out`` the store of ``old``'s edges minus ``remove`` plus ``add``; return its
+    manifest.
+
+    Parameters
+    ----------
+    old : an unweighted store (format version 2 or later, built without ``--nodes``)
+    out : the store directory to create (a local path)
+    add, remove : edge tables (files, directories, globs; Parquet or CSV) with the store's key
+        type, columns named like the store's ``src``/``dst`` options unless ``src``/``dst``
+        are given; either may be empty
+    overwrite : replace an existing ``out``
+    reporter : progress and events
+    threads : DuckDB threads for reading the delta
+
+    Notes
+    -----
+    The new edge set is ``(old - remove) | add`` over distinct (src, dst) key pairs, under the
+    store's self-loop rule (``self_loops: drop`` drops added self-loops). A removed pair the
+    store lacks is counted (``removals_absent``), not an error; a pair both removed and added
+    stays. Nodes are the keys of the new edges: a key left with no edge vanishes, keys of
+    added edges appear, and ids follow key order, as a build assigns them. Every ``.npy`` file
+    equals, byte for byte, what ``shardrank build`` of the new edge set (with the old store's
+    options) writes, and the node keys are the same. Memory: the delta, a few N-sized
+    vectors and one chunk of ``CHUNK_EDGES`` edges.
+
+    Raises
+    ------
+    BadInputError
+        a weighted, ``--nodes`` or version-1 store; delta keys of the other type; null keys;
+        ``out`` exists without ``overwrite``; no edge left. Nothing is left at ``out``.
+    DamagedDataError
+        the old store fails its checksums.
+    """
+    rep = reporter or Reporter()
+    loc = urls.parse_location(out)
+    if loc.local is None:
+        raise BadInputError(f"{out}: a patch writes a local store",
+                            hint="patch into a local directory, then copy it")
+    out_p = loc.local
+    if out_p.exists() and not overwrite:
+        raise BadInputError(f"{out_p} already exists", hint="pass --overwrite to replace it, or pick another --out")
+    r = StoreReader.open(old)
+    _check_store(r)
+    m = r.manifest
+    opts = dict(m.options)
+    src, dst = src or opts.get("src") or "src", dst or opts.get("dst") or "dst"
+    header = str(opts.get("header", "auto"))
+    t0 = time.monotonic()
+    rep.event("phase", "reading the delta...", phase="delta")
+    add_files, t_add = _read_delta(add, m, src, dst, header, threads)
+    rem_files, t_rem = _read_delta(remove, m, src, dst, header, threads)
+    rep.event("phase", "verifying the old store's checksums...", phase="verify")
+    r.verify_checksums(lambda name, i, n: rep.progress("verifying the old store", i + 1, n, "files"))
+    out_p.parent.mkdir(parents=True, exist_ok=True)
+    _remove_stale_partials(out_p, rep)
+    tmp = layout.partial_dir(out_p, os.getpid())
+    shutil.rmtree(tmp, ignore_errors=True)
+    tmp.mkdir()
+    try:
+        manifest = _patch(r, tmp, t_add, t_rem, add_files, rem_files, rep)
+        rep.event("phase", "publishing the store...", phase="publish")
+        _publish(tmp, out_p, overwrite)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    rep.event("built", f"patched store: {manifest.n_nodes:,} nodes, {manifest.n_edges:,} edges "
+              f"(+{manifest.counts['edges_added']:,} -{manifest.counts['edges_removed']:,}) in "
+              f"{time.monotonic() - t0:.1f} s", nodes=manifest.n_nodes, edges=manifest.n_edges)
+    rep.done()
+    return manifest
+
+
+def _patch(r: StoreReader, tmp: Path, t_add: pa.Table, t_rem: pa.Table, add_files: list[InputFile],
+           rem_files: list[InputFile], rep: Reporter) -> StoreManifest:
+    m = r.manifest
+    n_old, kt = m.n_nodes, m.key_type
+    drop_loops = m.options.get("self_loops") == "drop"
+    rep.event("phase", "looking the delta up in the old store...", phase="lookup")
+    # 1. delta keys -> old ids (-1: not in the store)
+    uniq, (a_s, a_d, r_s, r_d) = _unique_keys(t_add, t_rem, kt)
+    old_keys = _as_keys(r.keys(), kt)
+    below = _count_below(old_keys, uniq, kt)
+    in_store = _equal_at(old_keys, below, uniq, kt)
+    old_of_u = np.where(in_store, below, -1)
+    # 2. distinct pairs (indices into uniq), the self-loop rule, and their fate in the old store
+    add_loop_rows = int(np.count_nonzero(a_s == a_d))
+    keep = a_s != a_d if drop_loops else slice(None)
+    A = _distinct(a_d[keep], a_s[keep])
+    R = _distinct(r_d, r_s)
+    slot = np.asarray(r.read_slot())
+
+    def present(p: np.ndarray) -> np.ndarray:
+        d, s = _split(p)
+        od, os_ = old_of_u[d], old_of_u[s]
+        both = (od >= 0) & (os_ >= 0)
+        hit = np.zeros(p.shape[0], dtype=bool)
+        hit[both] = _present(r, slot, od[both], os_[both])
+        return hit
+
+    a_present, r_present = present(A), present(R)
+    r_eff = R[r_present & ~np.isin(R, A, assume_unique=True)]  # edges really removed
+    a_eff = A[~a_present]  # edges really added
+    # 3. new degrees, vanished and new nodes, the monotone old id -> new id map
+    in_deg = np.array(r.in_degree(), dtype=np.int64)
+    out_deg = np.array(r.out_degree(), dtype=np.int64)
+    rd, rs = _split(r_eff)
+    rd, rs = old_of_u[rd], old_of_u[rs]
+    in_deg -= np.bincount(rd, minlength=n_old)
+    out_deg -= np.bincount(rs, minlength=n_old)
+    ad_u, as_u = _split(a_eff)
+    touched = np.zeros(n_old, dtype=bool)  # old nodes given an added edge
+    touched[old_of_u[ad_u][old_of_u[ad_u] >= 0]] = True
+    touched[old_of_u[as_u][old_of_u[as_u] >= 0]] = True
+    kept = (in_deg + out_deg > 0) | touched
+    u_new = np.zeros(len(uniq), dtype=bool)
+    u_new[ad_u] = True
+    u_new[as_u] = True
+    u_new &= old_of_u < 0
+    new_u = np.flatnonzero(u_new)  # indices into uniq of the keys that appear, ascending = key order
+    ins = below[new_u]  # old keys smaller than each new key
+    kept_prefix = np.concatenate([[0], np.cumsum(kept)])  # kept old ids below each old id
+    nb = np.cumsum(np.bincount(ins, minlength=n_old + 1))[:n_old]  # new keys below each old key
+    pos_new = kept_prefix[:n_old] + nb  # monotone: the new id of each kept old id
+    old_to_new = np.where(kept, pos_new, -1)
+    u_to_new = np.full(len(uniq), -1, dtype=np.int64)
+    u_to_new[in_store] = old_to_new[old_of_u[in_store]]
+    u_to_new[new_u] = np.arange(new_u.shape[0]) + kept_prefix[ins]
+    n_new = int(kept_prefix[-1]) + new_u.shape[0]
+    if n_new == 0:
+        raise BadInputError("the patch removes every edge; a store needs at least one",
+                            hint="check the --remove tables")
+    if n_new >= 2**32:
+        raise BadInputError(f"{n_new:,} nodes after the patch; a patch handles fewer than 2^32",
+                            hint="build the new store in full with `shardrank build`")
+    new_in = np.zeros(n_new, dtype=np.int64)
+    new_out = np.zeros(n_new, dtype=np.int64)
+    new_in[old_to_new[kept]] = in_deg[kept]
+    new_out[old_to_new[kept]] = out_deg[kept]
+    add_new = np.sort(_pack(u_to_new[ad_u], u_to_new[as_u]))  # added edges in new ids
+    nd, ns = _split(add_new)
+    new_in += np.bincount(nd, minlength=n_new)
+    new_out += np.bincount(ns, minlength=n_new)
+    rem_old = np.sort(_pack(rd, rs))  # removed edges in old ids
+    # 4. write: nodes, degrees, read slots and offsets, then the shards chunk by chunk
+    width = _checked_width(n_new, BuildOptions(id_width=m.options.get("id_width", "auto")))
+    w = StoreWriter(tmp, n_new, m.block_nodes, f"<u{width // 8}", False)
+    rep.event("phase", "writing node keys and degrees...", phase="degrees")
+    _write_nodes(tmp / layout.NODES, old_keys, kept, old_to_new, uniq, new_u, u_to_new, n_new, kt)
+    w.add_file(layout.NODES)
+    w.write_array(layout.OUT_DEGREE, new_out)
+    w.write_array(layout.IN_DEGREE, new_in)
+    w.write_array(layout.OUT_WEIGHT, new_out.astype(np.float64))
+    w.begin_shards(new_in, new_out)
+    del slot, in_deg, out_deg, kept_prefix, nb
+    _write_shards(r, w, new_in, pos_new, old_to_new, rem_old, add_new, rep)
+    n_edges = m.n_edges - r_eff.shape[0] + a_eff.shape[0]
+    if w.n_edges != n_edges:
+        raise ShardrankError(f"internal error: wrote {w.n_edges} edges, expected {n_edges}")
+    loops = int(m.counts.get("self_loops", 0)) - int(np.count_nonzero(rd == rs)) + int(
+        np.count_nonzero(nd == ns))
+    counts = {
+        "rows_read": t_add.num_rows + t_rem.num_rows, "rows_dropped_null": 0,
+        "self_loop_rows": add_loop_rows,
+        "duplicates_merged": t_add.num_rows - (add_loop_rows if drop_loops else 0) - A.shape[0],
+        "self_loops": loops, "self_loop_rows_dropped": add_loop_rows if drop_loops else 0,
+        "dead_ends": int(np.count_nonzero(new_out == 0)),
+        "no_in_links": int(np.count_nonzero(new_in == 0)),
+        "add_rows": t_add.num_rows, "remove_rows": t_rem.num_rows,
+        "edges_added": int(a_eff.shape[0]), "edges_removed": int(r_eff.shape[0]),
+        "additions_present": int(np.count_nonzero(a_present)),
+        "removals_absent": int(np.count_nonzero(~r_present)),
+        "nodes_added": int(new_u.shape[0]), "nodes_vanished": int(n_old - np.count_nonzero(kept)),
+    }
+    return _manifest(w, r, add_files, rem_files, counts)
+
+
+def _write_nodes(path: Path, old_keys: Any, kept: np.ndarray, old_to_new: np.ndarray, uniq: Any,
+                 new_u: np.ndarray, u_to_new: np.ndarray, n_new: int, kt: str) -> None:
+    """nodes.parquet: id, key in new id order (surviving old keys merged with the new ones)."""
+    by_new = np.empty(n_new, dtype=np.int64)  # index into old keys, or n_old + index into uniq
+    by_new[old_to_new[kept]] = np.flatnonzero(kept)
+    by_new[u_to_new[new_u]] = len(old_keys) + new_u
+    if kt == "int64":
+        keys: Any = np.concatenate([old_keys, uniq])
+        ktype = pa.int64()
+    else:
+        keys = pa.concat_arrays([old_keys, uniq.cast(pa.large_string())])
+        ktype = pa.string()
+    schema = pa.schema([("id", pa.int64()), ("key", ktype)])
+    step = settings.BATCH_ROWS
+    with pq.ParquetWriter(path, schema, compression="zstd") as wr:
+        for a in range(0, n_new, step):
+            b = min(a + step, n_new)
+            k = (pa.array(keys[by_new[a:b]]) if kt == "int64"
+                 else pc.take(keys, pa.array(by_new[a:b])).cast(ktype))
+            wr.write_table(pa.table([pa.array(np.arange(a, b, dtype=np.int64)), k], schema=schema),
+                           row_group_size=step)
+
+
+def _write_shards(r: StoreReader, w: StoreWriter, new_in: np.ndarray, pos_new: np.ndarray,
+                  old_to_new: np.ndarray, rem_old: np.ndarray, add_new: np.ndarray, rep: Reporter) -> None:
+    """Stream the new in-edges, chunk by chunk of new destination ids, into the writer."""
+    id_of_slot = ids_by_slot(np.asarray(r.read_slot()))
+    old_in = np.asarray(r.in_degree())
+    ends = np.cumsum(new_in)
+    total = int(ends[-1]) if ends.shape[0] else 0
+    n_new, n_old = new_in.shape[0], pos_new.shape[0]
+    a = 0
+    while a < n_new:
+        # the next chunk: new ids a .. b - 1 holding about CHUNK_EDGES edges (at least one row)
+        b = max(a + 1, int(np.searchsorted(ends, (ends[a - 1] if a else 0) + CHUNK_EDGES, side="right")))
+        b = min(b, n_new)
+        # their old rows: a contiguous old id range (the map is monotone; vanished rows inside
+        # it lose every in-edge to the removals)
+        oa, ob = int(np.searchsorted(pos_new, a)), int(np.searchsorted(pos_new, b))
+        if b == n_new:
+            ob = n_old
+        src = _old_rows(r, oa, ob, id_of_slot)
+        dst = np.repeat(np.arange(oa, ob, dtype=np.int64), old_in[oa:ob])
+        lo, hi = np.searchsorted(rem_old, _pack(np.array([oa, ob]), np.zeros(2, dtype=np.int64)))
+        if hi > lo:
+            keep = ~np.isin(_pack(dst, src), rem_old[lo:hi], assume_unique=True)
+            dst, src = dst[keep], src[keep]
+        dst, src = old_to_new[dst], old_to_new[src]
+        lo, hi = np.searchsorted(add_new, _pack(np.array([a, b]), np.zeros(2, dtype=np.int64)))
+        if hi > lo:
+            ad, as_ = _split(add_new[lo:hi])
+            # merge by destination: each added edge goes after the old edges of its row
+            at = np.searchsorted(dst, ad, side="right") + np.arange(ad.shape[0])
+            mask = np.ones(dst.shape[0] + ad.shape[0], dtype=bool)
+            mask[at] = False
+            md, ms = np.empty(mask.shape[0], dtype=np.int64), np.empty(mask.shape[0], dtype=np.int64)
+            md[mask], ms[mask] = dst, src
+            md[at], ms[at] = ad, as_
+            dst, src = md, ms
+        w.add_edges(dst, src, None)
+        rep.progress("writing shards", int(ends[b - 1]), total, "edges", block=w._cur)
+        a = b
+    w.finish_shards()
+
+
+def _manifest(w: StoreWriter, r: StoreReader, add_files: list[InputFile], rem_files: list[InputFile],
+              counts: dict[str, int]) -> StoreManifest:
+    """Options copied from the old store; the input fingerprint covers the old store and both
+    sides of the delta, so a patched store never passes for a build of some snapshot."""
+    m = r.manifest
+    opts = dict(m.options)
+    opts["build_path"] = "patch"
+    fp_opts = {k: opts.get(k) for k in ("src", "dst", "self_loops", "block_nodes")}
+    add_fp = fingerprint_inputs(add_files, fp_opts)
+    rem_fp = fingerprint_inputs(rem_files, fp_opts)
+    top = hashlib.sha256(f"patch {m.fingerprint} {add_fp['fingerprint']} {rem_fp['fingerprint']}".encode())
+    input_info = {"fingerprint": top.hexdigest(), "patched_from": m.fingerprint,
+                  "patched_from_path": str(r.path), "add": add_fp, "remove": rem_fp}
+    return w.write_manifest(m.key_type, input_info, opts, counts)

@@ -1,0 +1,173 @@
+"""patch_store(build(E_old), add, remove) equals build(E_new), file for file.
+
+The reference E_new = (E_old - REMOVE) | ADD is computed here with Python sets, independently
+of the code under test, and built in full with `shardrank build`; the two stores must hold
+byte-identical .npy files (degrees, read slots, offsets, sources) and equal keys, both must
+pass `verify`, and their in-edge CSR must equal a scipy.sparse reference (conftest's
+reference_csr, the sum-duplicates semantics of scipy's coo -> csr conversion).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+import shardrank
+from shardrank import BuildOptions
+from shardrank.ingest import patch as patch_mod
+from shardrank.ingest.patch import patch_store
+from tests.conftest import read_store_csr, reference_csr, write_edges
+
+
+def npy_files(store: Path) -> dict[str, bytes]:
+    return {str(p.relative_to(store)): p.read_bytes() for p in sorted(store.rglob("*.npy"))}
+
+
+def assert_same_store(patched: Path, full: Path) -> None:
+    a, b = npy_files(patched), npy_files(full)
+    assert sorted(a) == sorted(b)
+    for name in a:
+        assert a[name] == b[name], f"{name} differs"
+    ka, pa_, ia, _ = read_store_csr(patched)
+    kb, pb, ib, _ = read_store_csr(full)
+    assert ka == kb
+    np.testing.assert_array_equal(pa_, pb)
+    np.testing.assert_array_equal(ia, ib)
+    for s in (patched, full):
+        shardrank.verify_store(shardrank.open_store(s))
+
+
+def _keys(kind: str, rng: np.random.Generator, n: int) -> list[Any]:
+    if kind == "int":
+        # sparse, signed, unordered keys: ids must follow numeric order, not insertion order
+        return sorted({int(x) for x in rng.choice(np.arange(-500, 5000), size=n, replace=False)})
+    # string keys of varied lengths and a shared prefix: ids follow byte order
+    return sorted({f"h{int(x) % 7}.example/{'p' * int(x % 3)}{int(x)}" for x in rng.choice(10_000, n, replace=False)})
+
+
+def _case(rng: np.random.Generator, kind: str) -> tuple[list[tuple[Any, Any]], list[tuple[Any, Any]], list[tuple[Any, Any]]]:
+    """(old rows, add rows, remove rows) with every situation a delta can bring."""
+    pool = _keys(kind, rng, 80)
+    old_keys, fresh = pool[:40], pool[40:]
+    n_old = int(rng.integers(20, 160))
+    old = [(old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(n_old)]
+    old += old[: n_old // 5]  # duplicates
+    old.append((old_keys[3], old_keys[3]))  # a self-loop
+    old_set = sorted(set(old))
+    remove: list[tuple[Any, Any]] = []
+    add: list[tuple[Any, Any]] = []
+    # remove some present edges (and their duplicates)
+    for i in rng.choice(len(old_set), size=min(len(old_set), int(rng.integers(0, 25))), replace=False):
+        remove.append(old_set[int(i)])
+    # remove every edge of some nodes, so they vanish
+    for v in rng.choice(old_keys, size=int(rng.integers(0, 4)), replace=False):
+        remove += [e for e in old_set if v in e]
+    # removals the store does not hold: unknown keys, known keys not linked
+    remove += [(fresh[0], old_keys[0]), (old_keys[1], fresh[1])]
+    remove += [(old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(5)]
+    # additions: between old keys (some already present), to new keys (below, among and above
+    # the old ones), self-loops, duplicates, and some that are also removed
+    add += [(old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(int(rng.integers(0, 30)))]
+    add += [old_set[int(i)] for i in rng.integers(0, len(old_set), 5)]
+    add += [(fresh[int(rng.integers(2, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(int(rng.integers(0, 8)))]
+    add += [(old_keys[int(rng.integers(0, 40))], fresh[int(rng.integers(2, 40))]) for _ in range(int(rng.integers(0, 8)))]
+    add += [(pool[0], pool[0]) if pool[0] in fresh else (fresh[5], fresh[5]), (fresh[6], fresh[7])]
+    add += remove[: len(remove) // 4]
+    add += add[:3]
+    return old, [tuple(e) for e in add], [tuple(e) for e in remove]
+
+
+def _write(path: Path, rows: list[tuple[Any, Any]], kind: str) -> Path:
+    src = [r[0] for r in rows]
+    dst = [r[1] for r in rows]
+    if not rows:  # an empty table still needs typed columns
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        t = pa.type_for_alias("int64" if kind == "int" else "string")
+        path.parent.mkdir(parents=True, exist_ok=True)
+        pq.write_table(pa.table({"src": pa.array([], t), "dst": pa.array([], t)}), path)
+        return path
+    return write_edges(path, src, dst)
+
+
+def _new_set(old, add, remove, self_loops: str) -> set[tuple[Any, Any]]:
+    def rule(rows):
+        return {e for e in rows if self_loops == "keep" or e[0] != e[1]}
+
+    return (rule(old) - set(remove)) | rule(add)
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_patch_equals_full_build(tmp_path: Path, seed: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    rng = np.random.default_rng(seed)
+    kind = "int" if seed % 2 == 0 else "str"
+    opts = dict(self_loops="drop" if seed % 4 in (1, 2) else "keep", block_nodes=int(rng.choice([3, 7, 64])),
+                id_width=16 if seed % 3 == 0 else "auto")
+    # small chunks: the chunk walk crosses block and chunk boundaries many times
+    monkeypatch.setattr(patch_mod, "CHUNK_EDGES", int(rng.choice([1, 5, 40, 1 << 21])))
+    old, add, remove = _case(rng, kind)
+    e_new = sorted(_new_set(old, add, remove, opts["self_loops"]))  # the reference edge set
+    old_store = tmp_path / "old.store"
+    shardrank.build_store([_write(tmp_path / "old" / "e.parquet", old, kind)], old_store, BuildOptions(**opts))
+    add_f = _write(tmp_path / "d" / "add.parquet", add, kind)
+    rem_f = _write(tmp_path / "d" / "remove.csv" if seed % 5 == 0 else tmp_path / "d" / "remove.parquet", remove, kind)
+    patched = tmp_path / "patched.store"
+    m = patch_store(old_store, patched, add=[add_f], remove=[rem_f])
+    full = tmp_path / "full.store"
+    shardrank.build_store([_write(tmp_path / "new" / "e.parquet", e_new, kind)], full, BuildOptions(**opts))
+    assert_same_store(patched, full)
+    keys, ref = reference_csr([e[0] for e in e_new], [e[1] for e in e_new])
+    got_keys, ptr, idx, _ = read_store_csr(patched)
+    assert got_keys == keys
+    np.testing.assert_array_equal(ptr, ref.indptr)
+    np.testing.assert_array_equal(idx, ref.indices)
+    # the counts say what happened, from the sets
+    rule = (lambda e: opts["self_loops"] == "keep" or e[0] != e[1])
+    old_set = {e for e in old if rule(e)}
+    assert m.counts["edges_added"] == len(set(e_new) - old_set)
+    assert m.counts["edges_removed"] == len(old_set - set(e_new))
+    assert m.counts["removals_absent"] == len(set(remove) - old_set)
+    old_nodes = set(shardrank.open_store(old_store).keys().to_pylist())
+    new_nodes = {k for e in e_new for k in e}
+    assert m.counts["nodes_added"] == len(new_nodes - old_nodes)
+    assert m.counts["nodes_vanished"] == len(old_nodes - new_nodes)
+    assert m.options["build_path"] == "patch"
+    assert m.input["patched_from"] == shardrank.open_store(old_store).fingerprint
+
+
+def test_patch_of_a_patch_and_pagerank(tmp_path: Path) -> None:
+    """Two patches in a row still equal a full build, and PageRank over the patched store is
+    bitwise the one over the full build (the stores are identical)."""
+    rng = np.random.default_rng(42)
+    old, add, remove = _case(rng, "int")
+    _, add2, remove2 = _case(np.random.default_rng(43), "int")
+    s0 = tmp_path / "s0"
+    shardrank.build_store([_write(tmp_path / "o.parquet", old, "int")], s0, BuildOptions(block_nodes=8))
+    s1, s2 = tmp_path / "s1", tmp_path / "s2"
+    patch_store(s0, s1, add=[_write(tmp_path / "a1.parquet", add, "int")],
+                remove=[_write(tmp_path / "r1.parquet", remove, "int")])
+    patch_store(s1, s2, add=[_write(tmp_path / "a2.parquet", add2, "int")],
+                remove=[_write(tmp_path / "r2.parquet", remove2, "int")])
+    e1 = _new_set(old, add, remove, "keep")
+    e2 = sorted(_new_set(e1, add2, remove2, "keep"))
+    full = tmp_path / "full"
+    shardrank.build_store([_write(tmp_path / "n.parquet", e2, "int")], full, BuildOptions(block_nodes=8))
+    assert_same_store(s2, full)
+    a = shardrank.rank(s2, tmp_path / "ra", shardrank.RankOptions(tol=1e-12))
+    b = shardrank.rank(full, tmp_path / "rb", shardrank.RankOptions(tol=1e-12))
+    assert a.converged and b.converged
+    assert np.array_equal(np.asarray(a.scores), np.asarray(b.scores))
+    assert a.keys.to_pylist() == b.keys.to_pylist()
+
+
+def test_empty_delta_copies_the_graph(tmp_path: Path) -> None:
+    s0 = tmp_path / "s0"
+    shardrank.build_store([write_edges(tmp_path / "o.parquet", [1, 2, 3], [2, 3, 1])], s0)
+    s1 = tmp_path / "s1"
+    m = patch_store(s0, s1)
+    assert_same_store(s1, s0)
+    assert m.counts["edges_added"] == m.counts["edges_removed"] == 0
