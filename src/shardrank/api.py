@@ -12,6 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from .ingest.build import BuildOptions, build_store
+from .ingest.patch import patch_store
 from .progress import Reporter
 from .refresh import RefreshOptions, refresh
 from .results.result import RankResult, open_run
@@ -46,6 +47,7 @@ __all__ = [
     "inspect_store",
     "open_run",
     "open_store",
+    "patch_store",
     "rank",
     "refresh",
     "resume",

@@ -30,6 +30,18 @@ def cmd_build(a: argparse.Namespace, rep: Reporter) -> int:
     return 0
 
 
+def cmd_patch(a: argparse.Namespace, rep: Reporter) -> int:
+    m = api.patch_store(a.store, a.out, add=a.add, remove=a.remove, overwrite=a.overwrite, reporter=rep,
+                        src=a.src, dst=a.dst, threads=a.threads)
+    c = m.counts
+    if not a.quiet and a.log_format == "text":
+        print(f"{a.out}: {m.n_nodes:,} nodes, {m.n_edges:,} edges in {len(m.blocks)} blocks; "
+              f"{c['edges_added']:,} edges added, {c['edges_removed']:,} removed, "
+              f"{c['removals_absent']:,} removals not in the store, {c['nodes_added']:,} nodes added, "
+              f"{c['nodes_vanished']:,} vanished")
+    return 0
+
+
 def cmd_inspect(a: argparse.Namespace, rep: Reporter) -> int:
     facts = api.inspect_store(a.store)
     if a.json:

@@ -83,6 +83,39 @@ examples:
     _common(p)
 
 
+def _patch_cmd(sp: argparse._SubParsersAction) -> None:  # type: ignore[type-arg]
+    p = _sub(sp, "patch", "make a new store from a store plus added and removed edges", """\
+Make a new store from an existing one and a delta: edge tables of links added (--add) and
+links removed (--remove) since the store's snapshot. The old store is streamed block by
+block, so a small delta costs far less than a full build, and the result is the store
+`shardrank build` would write for the new edge set: the same ids, degrees and shards, byte
+for byte (see docs/delta.md).
+
+The new edge set is (old edges - removed) + added, each (src, dst) pair once, under the
+store's --self-loops rule. Removing a link the store does not hold is counted, not an error;
+a link both removed and added stays. A key left without any link disappears, keys of added
+links appear, and ids stay in key order. Delta tables are read like build inputs (Parquet or
+CSV, columns named like the store's --src/--dst); their keys must have the store's type.
+
+Only unweighted stores built without --nodes can be patched (format version 2 or later).
+
+examples:
+  shardrank patch crawl.store --add delta/added.parquet --remove delta/removed.parquet --out crawl-2.store
+  shardrank patch crawl.store --add 'new-links/*.csv' --out crawl-2.store
+""", commands.cmd_patch)
+    p.add_argument("store", metavar="STORE", help="the store to start from (left unchanged)")
+    p.add_argument("--add", nargs="+", default=[], metavar="EDGES",
+                   help="edge files, directories or glob patterns of links to add")
+    p.add_argument("--remove", nargs="+", default=[], metavar="EDGES",
+                   help="edge files, directories or glob patterns of links to remove")
+    p.add_argument("--out", required=True, metavar="NEW_STORE", help="the store directory to create")
+    p.add_argument("--src", metavar="COL", help="source key column of the delta tables (default: the store's)")
+    p.add_argument("--dst", metavar="COL", help="destination key column of the delta tables (default: the store's)")
+    p.add_argument("--threads", type=int, metavar="N", help="DuckDB threads reading the delta (default: all cores)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing NEW_STORE")
+    _common(p)
+
+
 def _rank_opts(p: argparse.ArgumentParser, defaults: bool = True) -> None:
     g = p.add_argument_group("what to compute")
     g.add_argument("--damping", type=float, default=settings.DAMPING if defaults else None,
@@ -343,6 +376,6 @@ def build_parser() -> argparse.ArgumentParser:
 
     p.add_argument("--version", action="version", version=f"shardrank {__version__}")
     sp = p.add_subparsers(title="commands", metavar="COMMAND")
-    for add in (_demo_cmd, _build_cmd, _inspect_cmd, _verify_cmd, _rank_cmd, _resume_cmd, _refresh_cmd, _top_cmd, _export_cmd, _compare_cmd, _report_cmd):
+    for add in (_demo_cmd, _build_cmd, _patch_cmd, _inspect_cmd, _verify_cmd, _rank_cmd, _resume_cmd, _refresh_cmd, _top_cmd, _export_cmd, _compare_cmd, _report_cmd):
         add(sp)
     return p
