@@ -45,35 +45,58 @@ def _keys(kind: str, rng: np.random.Generator, n: int) -> list[Any]:
         # sparse, signed, unordered keys: ids must follow numeric order, not insertion order
         return sorted({int(x) for x in rng.choice(np.arange(-500, 5000), size=n, replace=False)})
     # string keys of varied lengths and a shared prefix: ids follow byte order
-    return sorted({f"h{int(x) % 7}.example/{'p' * int(x % 3)}{int(x)}" for x in rng.choice(10_000, n, replace=False)})
+    return sorted(
+        {
+            f"h{int(x) % 7}.example/{'p' * int(x % 3)}{int(x)}"
+            for x in rng.choice(10_000, n, replace=False)
+        }
+    )
 
 
-def _case(rng: np.random.Generator, kind: str) -> tuple[list[tuple[Any, Any]], list[tuple[Any, Any]], list[tuple[Any, Any]]]:
+def _case(
+    rng: np.random.Generator, kind: str
+) -> tuple[list[tuple[Any, Any]], list[tuple[Any, Any]], list[tuple[Any, Any]]]:
     """(old rows, add rows, remove rows) with every situation a delta can bring."""
     pool = _keys(kind, rng, 80)
     old_keys, fresh = pool[:40], pool[40:]
     n_old = int(rng.integers(20, 160))
-    old = [(old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(n_old)]
+    old = [
+        (old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))])
+        for _ in range(n_old)
+    ]
     old += old[: n_old // 5]  # duplicates
     old.append((old_keys[3], old_keys[3]))  # a self-loop
     old_set = sorted(set(old))
     remove: list[tuple[Any, Any]] = []
     add: list[tuple[Any, Any]] = []
     # remove some present edges (and their duplicates)
-    for i in rng.choice(len(old_set), size=min(len(old_set), int(rng.integers(0, 25))), replace=False):
+    for i in rng.choice(
+        len(old_set), size=min(len(old_set), int(rng.integers(0, 25))), replace=False
+    ):
         remove.append(old_set[int(i)])
     # remove every edge of some nodes, so they vanish
     for v in rng.choice(old_keys, size=int(rng.integers(0, 4)), replace=False):
         remove += [e for e in old_set if v in e]
     # removals the store does not hold: unknown keys, known keys not linked
     remove += [(fresh[0], old_keys[0]), (old_keys[1], fresh[1])]
-    remove += [(old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(5)]
+    remove += [
+        (old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(5)
+    ]
     # additions: between old keys (some already present), to new keys (below, among and above
     # the old ones), self-loops, duplicates, and some that are also removed
-    add += [(old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(int(rng.integers(0, 30)))]
+    add += [
+        (old_keys[int(rng.integers(0, 40))], old_keys[int(rng.integers(0, 40))])
+        for _ in range(int(rng.integers(0, 30)))
+    ]
     add += [old_set[int(i)] for i in rng.integers(0, len(old_set), 5)]
-    add += [(fresh[int(rng.integers(2, 40))], old_keys[int(rng.integers(0, 40))]) for _ in range(int(rng.integers(0, 8)))]
-    add += [(old_keys[int(rng.integers(0, 40))], fresh[int(rng.integers(2, 40))]) for _ in range(int(rng.integers(0, 8)))]
+    add += [
+        (fresh[int(rng.integers(2, 40))], old_keys[int(rng.integers(0, 40))])
+        for _ in range(int(rng.integers(0, 8)))
+    ]
+    add += [
+        (old_keys[int(rng.integers(0, 40))], fresh[int(rng.integers(2, 40))])
+        for _ in range(int(rng.integers(0, 8)))
+    ]
     add += [(pool[0], pool[0]) if pool[0] in fresh else (fresh[5], fresh[5]), (fresh[6], fresh[7])]
     add += remove[: len(remove) // 4]
     add += add[:3]
@@ -102,31 +125,47 @@ def _new_set(old, add, remove, self_loops: str) -> set[tuple[Any, Any]]:
 
 
 @pytest.mark.parametrize("seed", range(10))
-def test_patch_equals_full_build(tmp_path: Path, seed: int, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_patch_equals_full_build(
+    tmp_path: Path, seed: int, monkeypatch: pytest.MonkeyPatch
+) -> None:
     rng = np.random.default_rng(seed)
     kind = "int" if seed % 2 == 0 else "str"
-    opts = dict(self_loops="drop" if seed % 4 in (1, 2) else "keep", block_nodes=int(rng.choice([3, 7, 64])),
-                id_width=16 if seed % 3 == 0 else "auto")
+    opts = dict(
+        self_loops="drop" if seed % 4 in (1, 2) else "keep",
+        block_nodes=int(rng.choice([3, 7, 64])),
+        id_width=16 if seed % 3 == 0 else "auto",
+    )
     # small chunks: the chunk walk crosses block and chunk boundaries many times
     monkeypatch.setattr(patch_mod, "CHUNK_EDGES", int(rng.choice([1, 5, 40, 1 << 21])))
     old, add, remove = _case(rng, kind)
     e_new = sorted(_new_set(old, add, remove, opts["self_loops"]))  # the reference edge set
     old_store = tmp_path / "old.store"
-    shardrank.build_store([_write(tmp_path / "old" / "e.parquet", old, kind)], old_store, BuildOptions(**opts))
+    shardrank.build_store(
+        [_write(tmp_path / "old" / "e.parquet", old, kind)], old_store, BuildOptions(**opts)
+    )
     add_f = _write(tmp_path / "d" / "add.parquet", add, kind)
-    rem_f = _write(tmp_path / "d" / "remove.csv" if seed % 5 == 0 else tmp_path / "d" / "remove.parquet", remove, kind)
+    rem_f = _write(
+        tmp_path / "d" / "remove.csv" if seed % 5 == 0 else tmp_path / "d" / "remove.parquet",
+        remove,
+        kind,
+    )
     patched = tmp_path / "patched.store"
     m = patch_store(old_store, patched, add=[add_f], remove=[rem_f])
     full = tmp_path / "full.store"
-    shardrank.build_store([_write(tmp_path / "new" / "e.parquet", e_new, kind)], full, BuildOptions(**opts))
+    shardrank.build_store(
+        [_write(tmp_path / "new" / "e.parquet", e_new, kind)], full, BuildOptions(**opts)
+    )
     assert_same_store(patched, full)
     keys, ref = reference_csr([e[0] for e in e_new], [e[1] for e in e_new])
     got_keys, ptr, idx, _ = read_store_csr(patched)
     assert got_keys == keys
     np.testing.assert_array_equal(ptr, ref.indptr)
     np.testing.assert_array_equal(idx, ref.indices)
+
     # the counts say what happened, from the sets
-    rule = (lambda e: opts["self_loops"] == "keep" or e[0] != e[1])
+    def rule(e: tuple[Any, Any]) -> bool:
+        return opts["self_loops"] == "keep" or e[0] != e[1]
+
     old_set = {e for e in old if rule(e)}
     assert m.counts["edges_added"] == len(set(e_new) - old_set)
     assert m.counts["edges_removed"] == len(old_set - set(e_new))
@@ -146,16 +185,28 @@ def test_patch_of_a_patch_and_pagerank(tmp_path: Path) -> None:
     old, add, remove = _case(rng, "int")
     _, add2, remove2 = _case(np.random.default_rng(43), "int")
     s0 = tmp_path / "s0"
-    shardrank.build_store([_write(tmp_path / "o.parquet", old, "int")], s0, BuildOptions(block_nodes=8))
+    shardrank.build_store(
+        [_write(tmp_path / "o.parquet", old, "int")], s0, BuildOptions(block_nodes=8)
+    )
     s1, s2 = tmp_path / "s1", tmp_path / "s2"
-    patch_store(s0, s1, add=[_write(tmp_path / "a1.parquet", add, "int")],
-                remove=[_write(tmp_path / "r1.parquet", remove, "int")])
-    patch_store(s1, s2, add=[_write(tmp_path / "a2.parquet", add2, "int")],
-                remove=[_write(tmp_path / "r2.parquet", remove2, "int")])
+    patch_store(
+        s0,
+        s1,
+        add=[_write(tmp_path / "a1.parquet", add, "int")],
+        remove=[_write(tmp_path / "r1.parquet", remove, "int")],
+    )
+    patch_store(
+        s1,
+        s2,
+        add=[_write(tmp_path / "a2.parquet", add2, "int")],
+        remove=[_write(tmp_path / "r2.parquet", remove2, "int")],
+    )
     e1 = _new_set(old, add, remove, "keep")
     e2 = sorted(_new_set(e1, add2, remove2, "keep"))
     full = tmp_path / "full"
-    shardrank.build_store([_write(tmp_path / "n.parquet", e2, "int")], full, BuildOptions(block_nodes=8))
+    shardrank.build_store(
+        [_write(tmp_path / "n.parquet", e2, "int")], full, BuildOptions(block_nodes=8)
+    )
     assert_same_store(s2, full)
     a = shardrank.rank(s2, tmp_path / "ra", shardrank.RankOptions(tol=1e-12))
     b = shardrank.rank(full, tmp_path / "rb", shardrank.RankOptions(tol=1e-12))

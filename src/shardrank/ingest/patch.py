@@ -47,7 +47,15 @@ from ..store.slots import ids_by_slot
 from ..store.writer import StoreWriter
 from .build import BuildOptions, _checked_width, _publish, _remove_stale_partials
 from .sources import InputFile, fingerprint_inputs, resolve_inputs
-from .tables import arrow_table, check_same_key_types, choose_columns, describe, scan_sql, sniff_text, sql_ident
+from .tables import (
+    arrow_table,
+    check_same_key_types,
+    choose_columns,
+    describe,
+    scan_sql,
+    sniff_text,
+    sql_ident,
+)
 
 CHUNK_EDGES = 1 << 21  # edges of the new store handled at once (about 100 MiB of temporaries)
 _LOW = np.uint64(0xFFFFFFFF)
@@ -77,21 +85,35 @@ def _check_store(r: StoreReader) -> None:
     m, where = r.manifest, r.path
     hint = "build the new store in full with `shardrank build`"
     if m.version < 2:
-        raise BadInputError(f"{where}: store format version {m.version} cannot be patched (read slots "
-                            "arrived in version 2)", hint=f"rebuild it once with this shardrank; {hint}")
+        raise BadInputError(
+            f"{where}: store format version {m.version} cannot be patched (read slots "
+            "arrived in version 2)",
+            hint=f"rebuild it once with this shardrank; {hint}",
+        )
     if m.weighted:
-        raise BadInputError(f"{where}: a weighted store cannot be patched (only unweighted edge sets)",
-                            hint=hint)
+        raise BadInputError(
+            f"{where}: a weighted store cannot be patched (only unweighted edge sets)", hint=hint
+        )
     if m.options.get("nodes"):
-        raise BadInputError(f"{where}: was built with --nodes (extra isolated nodes a patch cannot "
-                            "track)", hint=hint)
+        raise BadInputError(
+            f"{where}: was built with --nodes (extra isolated nodes a patch cannot track)",
+            hint=hint,
+        )
     if m.n_nodes >= 2**32:
-        raise BadInputError(f"{where}: {m.n_nodes:,} nodes; a patch handles fewer than 2^32", hint=hint)
+        raise BadInputError(
+            f"{where}: {m.n_nodes:,} nodes; a patch handles fewer than 2^32", hint=hint
+        )
 
 
 # -- reading the delta -----------------------------------------------------------------------------
-def _read_side(con: duckdb.DuckDBPyConnection, files: list[InputFile], m: StoreManifest,
-               src: str, dst: str, header: str) -> pa.Table:
+def _read_side(
+    con: duckdb.DuckDBPyConnection,
+    files: list[InputFile],
+    m: StoreManifest,
+    src: str,
+    dst: str,
+    header: str,
+) -> pa.Table:
     """The (s, d) key columns of one side of the delta, validated like build inputs."""
     where = str(files[0].path) if len(files) == 1 else f"delta files ({files[0].path}, ...)"
     files = sniff_text(con, files, header, [src, dst])
@@ -101,29 +123,48 @@ def _read_side(con: duckdb.DuckDBPyConnection, files: list[InputFile], m: StoreM
         kind = {"int64": "integer", "string": "text"}
         raise BadInputError(
             f"{where}: {kind[cols.key_type]} keys, but the store has {kind[m.key_type]} keys",
-            hint="a delta must use the store's key type (cast the key columns)")
+            hint="a delta must use the store's key type (cast the key columns)",
+        )
     key_sql = "BIGINT" if m.key_type == "int64" else "VARCHAR"
-    sql = (f"SELECT CAST({sql_ident(cols.src)} AS {key_sql}) AS s, "
-           f"CAST({sql_ident(cols.dst)} AS {key_sql}) AS d FROM {scan_sql(files)}")
+    sql = (
+        f"SELECT CAST({sql_ident(cols.src)} AS {key_sql}) AS s, "
+        f"CAST({sql_ident(cols.dst)} AS {key_sql}) AS d FROM {scan_sql(files)}"
+    )
     try:
         t = arrow_table(con, sql)
     except duckdb.Error as e:
-        raise BadInputError(f"{where}: cannot be read ({str(e).splitlines()[0]})",
-                            hint="check that every delta file is complete and holds keys of one type") from None
+        raise BadInputError(
+            f"{where}: cannot be read ({str(e).splitlines()[0]})",
+            hint="check that every delta file is complete and holds keys of one type",
+        ) from None
     for name, col in (("s", cols.src), ("d", cols.dst)):
         if t.column(name).null_count:
             # name the first file holding a null key in this column
-            bad = next((f for f in files if con.execute(
-                f"SELECT count(*) FROM {scan_sql([f])} WHERE {sql_ident(col)} IS NULL").fetchall()[0][0]),
-                files[0])
+            bad = next(
+                (
+                    f
+                    for f in files
+                    if con.execute(
+                        f"SELECT count(*) FROM {scan_sql([f])} WHERE {sql_ident(col)} IS NULL"
+                    ).fetchall()[0][0]
+                ),
+                files[0],
+            )
             raise BadInputError(
                 f"{bad.path}: {t.column(name).null_count:,} rows have a null '{col}'",
-                hint="a delta edge needs both keys: remove those rows from the delta")
+                hint="a delta edge needs both keys: remove those rows from the delta",
+            )
     return t
 
 
-def _read_delta(paths: Sequence[str | os.PathLike[str]], m: StoreManifest, src: str, dst: str,
-                header: str, threads: int | None) -> tuple[list[InputFile], pa.Table]:
+def _read_delta(
+    paths: Sequence[str | os.PathLike[str]],
+    m: StoreManifest,
+    src: str,
+    dst: str,
+    header: str,
+    threads: int | None,
+) -> tuple[list[InputFile], pa.Table]:
     if not paths:
         empty = pa.array([], type=pa.int64() if m.key_type == "int64" else pa.string())
         return [], pa.table({"s": empty, "d": empty})
@@ -184,12 +225,13 @@ def _unique_keys(t_add: pa.Table, t_rem: pa.Table, key_type: str) -> tuple[Any, 
         arrs = [_as_keys(c, key_type) for c in cols]
         uniq, inv = np.unique(np.concatenate(arrs), return_inverse=True)
         bounds = np.cumsum([0] + [a.shape[0] for a in arrs])
-        return uniq, [inv[bounds[i]:bounds[i + 1]].astype(np.int64) for i in range(4)]
+        return uniq, [inv[bounds[i] : bounds[i + 1]].astype(np.int64) for i in range(4)]
     allk = pa.concat_arrays([_as_keys(c, key_type) for c in cols])
     uniq = pc.unique(allk)
     uniq = pc.take(uniq, pc.sort_indices(uniq))
-    return uniq, [np.asarray(pc.index_in(_as_keys(c, key_type), value_set=uniq), dtype=np.int64)
-                  for c in cols]
+    return uniq, [
+        np.asarray(pc.index_in(_as_keys(c, key_type), value_set=uniq), dtype=np.int64) for c in cols
+    ]
 
 
 def _distinct(d: np.ndarray, s: np.ndarray) -> np.ndarray:
@@ -208,7 +250,7 @@ def _present(r: StoreReader, slot: np.ndarray, dst: np.ndarray, src: np.ndarray)
     order = np.argsort(blk, kind="stable")
     bounds = np.searchsorted(blk[order], np.arange(r.n_blocks + 1))
     for b in np.flatnonzero(np.diff(bounds)).tolist():
-        idx = order[bounds[b]:bounds[b + 1]]
+        idx = order[bounds[b] : bounds[b + 1]]
         sh = r.shard(b)
         off = np.asarray(sh.offsets)
         local = dst[idx] - sh.info.first_node
@@ -238,7 +280,7 @@ def _old_rows(r: StoreReader, oa: int, ob: int, id_of_slot: np.ndarray) -> np.nd
         sh = r.shard(b)
         first = sh.info.first_node
         a, z = max(oa, first) - first, min(ob, first + sh.info.n_nodes) - first
-        parts.append(id_of_slot[np.asarray(sh.sources[int(sh.offsets[a]):int(sh.offsets[z])])])
+        parts.append(id_of_slot[np.asarray(sh.sources[int(sh.offsets[a]) : int(sh.offsets[z])])])
     return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
 
 
@@ -290,11 +332,15 @@ def patch_store(
     rep = reporter or Reporter()
     loc = urls.parse_location(out)
     if loc.local is None:
-        raise BadInputError(f"{out}: a patch writes a local store",
-                            hint="patch into a local directory, then copy it")
+        raise BadInputError(
+            f"{out}: a patch writes a local store",
+            hint="patch into a local directory, then copy it",
+        )
     out_p = loc.local
     if out_p.exists() and not overwrite:
-        raise BadInputError(f"{out_p} already exists", hint="pass --overwrite to replace it, or pick another --out")
+        raise BadInputError(
+            f"{out_p} already exists", hint="pass --overwrite to replace it, or pick another --out"
+        )
     r = StoreReader.open(old)
     _check_store(r)
     m = r.manifest
@@ -306,7 +352,9 @@ def patch_store(
     add_files, t_add = _read_delta(add, m, src, dst, header, threads)
     rem_files, t_rem = _read_delta(remove, m, src, dst, header, threads)
     rep.event("phase", "verifying the old store's checksums...", phase="verify")
-    r.verify_checksums(lambda name, i, n: rep.progress("verifying the old store", i + 1, n, "files"))
+    r.verify_checksums(
+        lambda name, i, n: rep.progress("verifying the old store", i + 1, n, "files")
+    )
     out_p.parent.mkdir(parents=True, exist_ok=True)
     _remove_stale_partials(out_p, rep)
     tmp = layout.partial_dir(out_p, os.getpid())
@@ -319,15 +367,27 @@ def patch_store(
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    rep.event("built", f"patched store: {manifest.n_nodes:,} nodes, {manifest.n_edges:,} edges "
-              f"(+{manifest.counts['edges_added']:,} -{manifest.counts['edges_removed']:,}) in "
-              f"{time.monotonic() - t0:.1f} s", nodes=manifest.n_nodes, edges=manifest.n_edges)
+    rep.event(
+        "built",
+        f"patched store: {manifest.n_nodes:,} nodes, {manifest.n_edges:,} edges "
+        f"(+{manifest.counts['edges_added']:,} -{manifest.counts['edges_removed']:,}) in "
+        f"{time.monotonic() - t0:.1f} s",
+        nodes=manifest.n_nodes,
+        edges=manifest.n_edges,
+    )
     rep.done()
     return manifest
 
 
-def _patch(r: StoreReader, tmp: Path, t_add: pa.Table, t_rem: pa.Table, add_files: list[InputFile],
-           rem_files: list[InputFile], rep: Reporter) -> StoreManifest:
+def _patch(
+    r: StoreReader,
+    tmp: Path,
+    t_add: pa.Table,
+    t_rem: pa.Table,
+    add_files: list[InputFile],
+    rem_files: list[InputFile],
+    rep: Reporter,
+) -> StoreManifest:
     m = r.manifest
     n_old, kt = m.n_nodes, m.key_type
     drop_loops = m.options.get("self_loops") == "drop"
@@ -372,7 +432,9 @@ def _patch(r: StoreReader, tmp: Path, t_add: pa.Table, t_rem: pa.Table, add_file
     u_new[ad_u] = True
     u_new[as_u] = True
     u_new &= old_of_u < 0
-    new_u = np.flatnonzero(u_new)  # indices into uniq of the keys that appear, ascending = key order
+    new_u = np.flatnonzero(
+        u_new
+    )  # indices into uniq of the keys that appear, ascending = key order
     ins = below[new_u]  # old keys smaller than each new key
     kept_prefix = np.concatenate([[0], np.cumsum(kept)])  # kept old ids below each old id
     nb = np.cumsum(np.bincount(ins, minlength=n_old + 1))[:n_old]  # new keys below each old key
@@ -383,11 +445,15 @@ def _patch(r: StoreReader, tmp: Path, t_add: pa.Table, t_rem: pa.Table, add_file
     u_to_new[new_u] = np.arange(new_u.shape[0]) + kept_prefix[ins]
     n_new = int(kept_prefix[-1]) + new_u.shape[0]
     if n_new == 0:
-        raise BadInputError("the patch removes every edge; a store needs at least one",
-                            hint="check the --remove tables")
+        raise BadInputError(
+            "the patch removes every edge; a store needs at least one",
+            hint="check the --remove tables",
+        )
     if n_new >= 2**32:
-        raise BadInputError(f"{n_new:,} nodes after the patch; a patch handles fewer than 2^32",
-                            hint="build the new store in full with `shardrank build`")
+        raise BadInputError(
+            f"{n_new:,} nodes after the patch; a patch handles fewer than 2^32",
+            hint="build the new store in full with `shardrank build`",
+        )
     new_in = np.zeros(n_new, dtype=np.int64)
     new_out = np.zeros(n_new, dtype=np.int64)
     new_in[old_to_new[kept]] = in_deg[kept]
@@ -407,31 +473,48 @@ def _patch(r: StoreReader, tmp: Path, t_add: pa.Table, t_rem: pa.Table, add_file
     w.write_array(layout.IN_DEGREE, new_in)
     w.write_array(layout.OUT_WEIGHT, new_out.astype(np.float64))
     w.begin_shards(new_in, new_out)
-    del slot, in_deg, out_deg, kept_prefix, nb
+    del in_deg, out_deg, kept_prefix, nb
     _write_shards(r, w, new_in, pos_new, old_to_new, rem_old, add_new, rep)
     n_edges = m.n_edges - r_eff.shape[0] + a_eff.shape[0]
     if w.n_edges != n_edges:
         raise ShardrankError(f"internal error: wrote {w.n_edges} edges, expected {n_edges}")
-    loops = int(m.counts.get("self_loops", 0)) - int(np.count_nonzero(rd == rs)) + int(
-        np.count_nonzero(nd == ns))
+    loops = (
+        int(m.counts.get("self_loops", 0))
+        - int(np.count_nonzero(rd == rs))
+        + int(np.count_nonzero(nd == ns))
+    )
     counts = {
-        "rows_read": t_add.num_rows + t_rem.num_rows, "rows_dropped_null": 0,
+        "rows_read": t_add.num_rows + t_rem.num_rows,
+        "rows_dropped_null": 0,
         "self_loop_rows": add_loop_rows,
         "duplicates_merged": t_add.num_rows - (add_loop_rows if drop_loops else 0) - A.shape[0],
-        "self_loops": loops, "self_loop_rows_dropped": add_loop_rows if drop_loops else 0,
+        "self_loops": loops,
+        "self_loop_rows_dropped": add_loop_rows if drop_loops else 0,
         "dead_ends": int(np.count_nonzero(new_out == 0)),
         "no_in_links": int(np.count_nonzero(new_in == 0)),
-        "add_rows": t_add.num_rows, "remove_rows": t_rem.num_rows,
-        "edges_added": int(a_eff.shape[0]), "edges_removed": int(r_eff.shape[0]),
+        "add_rows": t_add.num_rows,
+        "remove_rows": t_rem.num_rows,
+        "edges_added": int(a_eff.shape[0]),
+        "edges_removed": int(r_eff.shape[0]),
         "additions_present": int(np.count_nonzero(a_present)),
         "removals_absent": int(np.count_nonzero(~r_present)),
-        "nodes_added": int(new_u.shape[0]), "nodes_vanished": int(n_old - np.count_nonzero(kept)),
+        "nodes_added": int(new_u.shape[0]),
+        "nodes_vanished": int(n_old - np.count_nonzero(kept)),
     }
     return _manifest(w, r, add_files, rem_files, counts)
 
 
-def _write_nodes(path: Path, old_keys: Any, kept: np.ndarray, old_to_new: np.ndarray, uniq: Any,
-                 new_u: np.ndarray, u_to_new: np.ndarray, n_new: int, kt: str) -> None:
+def _write_nodes(
+    path: Path,
+    old_keys: Any,
+    kept: np.ndarray,
+    old_to_new: np.ndarray,
+    uniq: Any,
+    new_u: np.ndarray,
+    u_to_new: np.ndarray,
+    n_new: int,
+    kt: str,
+) -> None:
     """nodes.parquet: id, key in new id order (surviving old keys merged with the new ones)."""
     by_new = np.empty(n_new, dtype=np.int64)  # index into old keys, or n_old + index into uniq
     by_new[old_to_new[kept]] = np.flatnonzero(kept)
@@ -447,14 +530,27 @@ def _write_nodes(path: Path, old_keys: Any, kept: np.ndarray, old_to_new: np.nda
     with pq.ParquetWriter(path, schema, compression="zstd") as wr:
         for a in range(0, n_new, step):
             b = min(a + step, n_new)
-            k = (pa.array(keys[by_new[a:b]]) if kt == "int64"
-                 else pc.take(keys, pa.array(by_new[a:b])).cast(ktype))
-            wr.write_table(pa.table([pa.array(np.arange(a, b, dtype=np.int64)), k], schema=schema),
-                           row_group_size=step)
+            k = (
+                pa.array(keys[by_new[a:b]])
+                if kt == "int64"
+                else pc.take(keys, pa.array(by_new[a:b])).cast(ktype)
+            )
+            wr.write_table(
+                pa.table([pa.array(np.arange(a, b, dtype=np.int64)), k], schema=schema),
+                row_group_size=step,
+            )
 
 
-def _write_shards(r: StoreReader, w: StoreWriter, new_in: np.ndarray, pos_new: np.ndarray,
-                  old_to_new: np.ndarray, rem_old: np.ndarray, add_new: np.ndarray, rep: Reporter) -> None:
+def _write_shards(
+    r: StoreReader,
+    w: StoreWriter,
+    new_in: np.ndarray,
+    pos_new: np.ndarray,
+    old_to_new: np.ndarray,
+    rem_old: np.ndarray,
+    add_new: np.ndarray,
+    rep: Reporter,
+) -> None:
     """Stream the new in-edges, chunk by chunk of new destination ids, into the writer."""
     id_of_slot = ids_by_slot(np.asarray(r.read_slot()))
     old_in = np.asarray(r.in_degree())
@@ -464,7 +560,9 @@ def _write_shards(r: StoreReader, w: StoreWriter, new_in: np.ndarray, pos_new: n
     a = 0
     while a < n_new:
         # the next chunk: new ids a .. b - 1 holding about CHUNK_EDGES edges (at least one row)
-        b = max(a + 1, int(np.searchsorted(ends, (ends[a - 1] if a else 0) + CHUNK_EDGES, side="right")))
+        b = max(
+            a + 1, int(np.searchsorted(ends, (ends[a - 1] if a else 0) + CHUNK_EDGES, side="right"))
+        )
         b = min(b, n_new)
         # their old rows: a contiguous old id range (the map is monotone; vanished rows inside
         # it lose every in-edge to the removals)
@@ -485,7 +583,10 @@ def _write_shards(r: StoreReader, w: StoreWriter, new_in: np.ndarray, pos_new: n
             at = np.searchsorted(dst, ad, side="right") + np.arange(ad.shape[0])
             mask = np.ones(dst.shape[0] + ad.shape[0], dtype=bool)
             mask[at] = False
-            md, ms = np.empty(mask.shape[0], dtype=np.int64), np.empty(mask.shape[0], dtype=np.int64)
+            md, ms = (
+                np.empty(mask.shape[0], dtype=np.int64),
+                np.empty(mask.shape[0], dtype=np.int64),
+            )
             md[mask], ms[mask] = dst, src
             md[at], ms[at] = ad, as_
             dst, src = md, ms
@@ -495,8 +596,13 @@ def _write_shards(r: StoreReader, w: StoreWriter, new_in: np.ndarray, pos_new: n
     w.finish_shards()
 
 
-def _manifest(w: StoreWriter, r: StoreReader, add_files: list[InputFile], rem_files: list[InputFile],
-              counts: dict[str, int]) -> StoreManifest:
+def _manifest(
+    w: StoreWriter,
+    r: StoreReader,
+    add_files: list[InputFile],
+    rem_files: list[InputFile],
+    counts: dict[str, int],
+) -> StoreManifest:
     """Options copied from the old store; the input fingerprint covers the old store and both
     sides of the delta, so a patched store never passes for a build of some snapshot."""
     m = r.manifest
@@ -505,7 +611,14 @@ def _manifest(w: StoreWriter, r: StoreReader, add_files: list[InputFile], rem_fi
     fp_opts = {k: opts.get(k) for k in ("src", "dst", "self_loops", "block_nodes")}
     add_fp = fingerprint_inputs(add_files, fp_opts)
     rem_fp = fingerprint_inputs(rem_files, fp_opts)
-    top = hashlib.sha256(f"patch {m.fingerprint} {add_fp['fingerprint']} {rem_fp['fingerprint']}".encode())
-    input_info = {"fingerprint": top.hexdigest(), "patched_from": m.fingerprint,
-                  "patched_from_path": str(r.path), "add": add_fp, "remove": rem_fp}
+    top = hashlib.sha256(
+        f"patch {m.fingerprint} {add_fp['fingerprint']} {rem_fp['fingerprint']}".encode()
+    )
+    input_info = {
+        "fingerprint": top.hexdigest(),
+        "patched_from": m.fingerprint,
+        "patched_from_path": str(r.path),
+        "add": add_fp,
+        "remove": rem_fp,
+    }
     return w.write_manifest(m.key_type, input_info, opts, counts)
