@@ -27,17 +27,26 @@ def relabel_rows(row_ptr, src, slot, weights, src_out, weights_out):  # pragma: 
     for r in prange(n_rows):
         a = row_ptr[r]
         b = row_ptr[r + 1]
-        if b - a == 0:
-            continue
-        mapped = np.empty(b - a, dtype=np.int64)
-        for e in range(a, b):
-            mapped[e - a] = slot[src[e]]
         if has_w:
+            mapped = np.empty(b - a, dtype=np.int64)
+            for e in range(a, b):
+                mapped[e - a] = slot[src[e]]
             order = np.argsort(mapped)
             for k in range(b - a):
                 src_out[a + k] = mapped[order[k]]
                 weights_out[a + k] = weights[a + order[k]]
         else:
-            mapped.sort()
-            for k in range(b - a):
-                src_out[a + k] = mapped[k]
+            # in place, no allocation per row: most rows are short (insertion sort), a long
+            # one is sorted whole
+            for e in range(a, b):
+                src_out[e] = slot[src[e]]
+            if b - a > 32:
+                src_out[a:b].sort()
+                continue
+            for e in range(a + 1, b):
+                x = src_out[e]
+                k = e - 1
+                while k >= a and src_out[k] > x:
+                    src_out[k + 1] = src_out[k]
+                    k -= 1
+                src_out[k + 1] = x

@@ -124,17 +124,25 @@ class StoreWriter:
 
     def add_edges(self, dst: np.ndarray, src: np.ndarray, weight: np.ndarray | None) -> None:
         """Append a batch of edges (source ids); batches must arrive sorted by destination."""
-        if self._tail is not None:
-            td, ts, tw = self._tail
-            dst, src = np.concatenate([td, dst]), np.concatenate([ts, src])
-            weight = None if weight is None or tw is None else np.concatenate([tw, weight])
-            self._tail = None
-        if dst.shape[0] == 0:
+        m = dst.shape[0]
+        if m == 0:
             return
+        start = 0
+        if self._tail is not None:
+            # the held-back row, joined by its continuation at the head of this batch
+            td, ts, tw = self._tail
+            self._tail = None
+            start = int(np.searchsorted(dst, td[0], side="right")) if dst[0] == td[0] else 0
+            if start == m:  # the whole batch continues the row: keep holding it
+                self._tail = (np.concatenate([td, dst]), np.concatenate([ts, src]),
+                              None if tw is None or weight is None else np.concatenate([tw, weight]))
+                return
+            self._write_rows(np.concatenate([td, dst[:start]]), np.concatenate([ts, src[:start]]),
+                             None if tw is None or weight is None else np.concatenate([tw, weight[:start]]))
         # hold back the batch's last row (its edges may go on in the next batch)
-        cut = int(np.searchsorted(dst, dst[-1], side="left"))
+        cut = max(start, int(np.searchsorted(dst, dst[-1], side="left")))
         self._tail = (dst[cut:].copy(), src[cut:].copy(), None if weight is None else weight[cut:].copy())
-        self._write_rows(dst[:cut], src[:cut], None if weight is None else weight[:cut])
+        self._write_rows(dst[start:cut], src[start:cut], None if weight is None else weight[start:cut])
 
     def _write_rows(self, dst: np.ndarray, src: np.ndarray, weight: np.ndarray | None) -> None:
         """Write whole rows: sources become slots, sorted within each row."""
