@@ -239,12 +239,17 @@ def _distinct(d: np.ndarray, s: np.ndarray) -> np.ndarray:
 
 
 # -- looking pairs up in the old shards ------------------------------------------------------------
-def _present(r: StoreReader, slot: np.ndarray, dst: np.ndarray, src: np.ndarray) -> np.ndarray:
-    """Whether each old-id pair (src -> dst) is an edge of the old store (a binary search of the
-    source's read slot within the destination's row; rows are ascending by slot)."""
+def _present(
+    r: StoreReader, slot: np.ndarray, dst: np.ndarray, src: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Whether each old-id pair (src -> dst) is an edge of the old store, and where: its index
+    in the store's edges, blocks one after the other (a binary search of the source's read
+    slot within the destination's row; rows are ascending by slot)."""
     found = np.zeros(dst.shape[0], dtype=bool)
+    where = np.zeros(dst.shape[0], dtype=np.int64)
     if dst.shape[0] == 0:
-        return found
+        return found, where
+    base = np.concatenate([[0], np.cumsum([b.n_edges for b in r.manifest.blocks])])
     bn = r.manifest.block_nodes
     blk = dst // bn
     order = np.argsort(blk, kind="stable")
@@ -269,7 +274,8 @@ def _present(r: StoreReader, slot: np.ndarray, dst: np.ndarray, src: np.ndarray)
         hit = np.zeros(idx.shape[0], dtype=bool)
         hit[ok] = sh.sources[lo[ok]].astype(np.int64) == target[ok]
         found[idx] = hit
-    return found
+        where[idx] = lo + base[b]
+    return found, where
 
 
 def _old_rows(r: StoreReader, oa: int, ob: int, id_of_slot: np.ndarray) -> np.ndarray:
@@ -405,16 +411,19 @@ def _patch(
     R = _distinct(r_d, r_s)
     slot = np.asarray(r.read_slot())
 
-    def present(p: np.ndarray) -> np.ndarray:
+    def present(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         d, s = _split(p)
         od, os_ = old_of_u[d], old_of_u[s]
         both = (od >= 0) & (os_ >= 0)
         hit = np.zeros(p.shape[0], dtype=bool)
-        hit[both] = _present(r, slot, od[both], os_[both])
-        return hit
+        at = np.zeros(p.shape[0], dtype=np.int64)
+        hit[both], at[both] = _present(r, slot, od[both], os_[both])
+        return hit, at
 
-    a_present, r_present = present(A), present(R)
-    r_eff = R[r_present & ~np.isin(R, A, assume_unique=True)]  # edges really removed
+    (a_present, _), (r_present, r_at) = present(A), present(R)
+    gone = r_present & ~np.isin(R, A, assume_unique=True)
+    r_eff = R[gone]  # edges really removed
+    rem_at = np.sort(r_at[gone])  # and where they sit in the old shards
     a_eff = A[~a_present]  # edges really added
     # 3. new degrees, vanished and new nodes, the monotone old id -> new id map
     in_deg = np.array(r.in_degree(), dtype=np.int64)
@@ -462,7 +471,6 @@ def _patch(
     nd, ns = _split(add_new)
     new_in += np.bincount(nd, minlength=n_new)
     new_out += np.bincount(ns, minlength=n_new)
-    rem_old = np.sort(_pack(rd, rs))  # removed edges in old ids
     # 4. write: nodes, degrees, read slots and offsets, then the shards chunk by chunk
     width = _checked_width(n_new, BuildOptions(id_width=m.options.get("id_width", "auto")))
     w = StoreWriter(tmp, n_new, m.block_nodes, f"<u{width // 8}", False)
@@ -474,7 +482,7 @@ def _patch(
     w.write_array(layout.OUT_WEIGHT, new_out.astype(np.float64))
     w.begin_shards(new_in, new_out)
     del in_deg, out_deg, kept_prefix, nb
-    _write_shards(r, w, new_in, pos_new, old_to_new, rem_old, add_new, rep)
+    _write_shards(r, w, new_in, pos_new, old_to_new, rem_at, add_new, rep)
     n_edges = m.n_edges - r_eff.shape[0] + a_eff.shape[0]
     if w.n_edges != n_edges:
         raise ShardrankError(f"internal error: wrote {w.n_edges} edges, expected {n_edges}")
@@ -547,13 +555,14 @@ def _write_shards(
     new_in: np.ndarray,
     pos_new: np.ndarray,
     old_to_new: np.ndarray,
-    rem_old: np.ndarray,
+    rem_at: np.ndarray,
     add_new: np.ndarray,
     rep: Reporter,
 ) -> None:
     """Stream the new in-edges, chunk by chunk of new destination ids, into the writer."""
     id_of_slot = ids_by_slot(np.asarray(r.read_slot()))
     old_in = np.asarray(r.in_degree())
+    old_start = np.concatenate([[0], np.cumsum(old_in)])  # index of each old row's first edge
     ends = np.cumsum(new_in)
     total = int(ends[-1]) if ends.shape[0] else 0
     n_new, n_old = new_in.shape[0], pos_new.shape[0]
@@ -571,9 +580,11 @@ def _write_shards(
             ob = n_old
         src = _old_rows(r, oa, ob, id_of_slot)
         dst = np.repeat(np.arange(oa, ob, dtype=np.int64), old_in[oa:ob])
-        lo, hi = np.searchsorted(rem_old, _pack(np.array([oa, ob]), np.zeros(2, dtype=np.int64)))
-        if hi > lo:
-            keep = ~np.isin(_pack(dst, src), rem_old[lo:hi], assume_unique=True)
+        e0, e1 = int(old_start[oa]), int(old_start[ob])
+        lo, hi = np.searchsorted(rem_at, [e0, e1])
+        if hi > lo:  # drop the removed edges by their place in the old shards
+            keep = np.ones(e1 - e0, dtype=bool)
+            keep[rem_at[lo:hi] - e0] = False
             dst, src = dst[keep], src[keep]
         dst, src = old_to_new[dst], old_to_new[src]
         lo, hi = np.searchsorted(add_new, _pack(np.array([a, b]), np.zeros(2, dtype=np.int64)))
