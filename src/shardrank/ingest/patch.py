@@ -223,9 +223,15 @@ def _unique_keys(t_add: pa.Table, t_rem: pa.Table, key_type: str) -> tuple[Any, 
     cols = [t.column(c) for t in (t_add, t_rem) for c in ("s", "d")]
     if key_type == "int64":
         arrs = [_as_keys(c, key_type) for c in cols]
-        uniq, inv = np.unique(np.concatenate(arrs), return_inverse=True)
-        bounds = np.cumsum([0] + [a.shape[0] for a in arrs])
-        return uniq, [inv[bounds[i] : bounds[i + 1]].astype(np.int64) for i in range(4)]
+        allk = np.concatenate(arrs)
+        order = np.argsort(allk, kind="stable")
+        srt = allk[order]
+        first = np.ones(srt.shape[0], dtype=bool)
+        first[1:] = srt[1:] != srt[:-1]
+        inv = np.empty(srt.shape[0], dtype=np.int64)
+        inv[order] = np.cumsum(first) - 1  # the rank of each key among the distinct keys
+        bounds = np.cumsum([0] + [x.shape[0] for x in arrs])
+        return srt[first], [inv[bounds[i] : bounds[i + 1]] for i in range(4)]
     allk = pa.concat_arrays([_as_keys(c, key_type) for c in cols])
     uniq = pc.unique(allk)
     uniq = pc.take(uniq, pc.sort_indices(uniq))
@@ -234,8 +240,17 @@ def _unique_keys(t_add: pa.Table, t_rem: pa.Table, key_type: str) -> tuple[Any, 
     ]
 
 
+def _sorted_unique(a: np.ndarray) -> np.ndarray:
+    """np.unique by sorting: on 5.2 M int64 keys 0.09 s against 5.5 s for np.unique (numpy
+    2.4, whose hash path is slow here; measured on this machine)."""
+    a = np.sort(a)
+    keep = np.ones(a.shape[0], dtype=bool)
+    keep[1:] = a[1:] != a[:-1]
+    return a[keep]
+
+
 def _distinct(d: np.ndarray, s: np.ndarray) -> np.ndarray:
-    return np.unique(_pack(d, s))
+    return _sorted_unique(_pack(d, s))
 
 
 # -- looking pairs up in the old shards ------------------------------------------------------------
@@ -278,15 +293,16 @@ def _present(
     return found, where
 
 
-def _old_rows(r: StoreReader, oa: int, ob: int, id_of_slot: np.ndarray) -> np.ndarray:
-    """Old source ids of the in-edges of old destinations ``oa .. ob - 1``, row after row."""
+def _old_rows(r: StoreReader, oa: int, ob: int, slot_to_new: np.ndarray) -> np.ndarray:
+    """New source ids of the old in-edges of old destinations ``oa .. ob - 1``, row after row
+    (-1 for a source that vanished: all its edges are removed ones)."""
     bn = r.manifest.block_nodes
     parts = []
     for b in range(oa // bn, (ob - 1) // bn + 1 if ob > oa else oa // bn):
         sh = r.shard(b)
         first = sh.info.first_node
         a, z = max(oa, first) - first, min(ob, first + sh.info.n_nodes) - first
-        parts.append(id_of_slot[np.asarray(sh.sources[int(sh.offsets[a]) : int(sh.offsets[z])])])
+        parts.append(slot_to_new[np.asarray(sh.sources[int(sh.offsets[a]) : int(sh.offsets[z])])])
     return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
 
 
@@ -560,7 +576,8 @@ def _write_shards(
     rep: Reporter,
 ) -> None:
     """Stream the new in-edges, chunk by chunk of new destination ids, into the writer."""
-    id_of_slot = ids_by_slot(np.asarray(r.read_slot()))
+    # old slot -> new id in one gather per edge (old slot -> old id -> new id composed once)
+    slot_to_new = old_to_new[ids_by_slot(np.asarray(r.read_slot()))]
     old_in = np.asarray(r.in_degree())
     old_start = np.concatenate([[0], np.cumsum(old_in)])  # index of each old row's first edge
     ends = np.cumsum(new_in)
@@ -578,15 +595,14 @@ def _write_shards(
         oa, ob = int(np.searchsorted(pos_new, a)), int(np.searchsorted(pos_new, b))
         if b == n_new:
             ob = n_old
-        src = _old_rows(r, oa, ob, id_of_slot)
-        dst = np.repeat(np.arange(oa, ob, dtype=np.int64), old_in[oa:ob])
+        src = _old_rows(r, oa, ob, slot_to_new)
+        dst = np.repeat(old_to_new[oa:ob], old_in[oa:ob])
         e0, e1 = int(old_start[oa]), int(old_start[ob])
         lo, hi = np.searchsorted(rem_at, [e0, e1])
         if hi > lo:  # drop the removed edges by their place in the old shards
             keep = np.ones(e1 - e0, dtype=bool)
             keep[rem_at[lo:hi] - e0] = False
             dst, src = dst[keep], src[keep]
-        dst, src = old_to_new[dst], old_to_new[src]
         lo, hi = np.searchsorted(add_new, _pack(np.array([a, b]), np.zeros(2, dtype=np.int64)))
         if hi > lo:
             ad, as_ = _split(add_new[lo:hi])
