@@ -27,11 +27,9 @@ import os
 import shutil
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import duckdb
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
@@ -46,38 +44,19 @@ from ..store.reader import StoreReader
 from ..store.slots import ids_by_slot
 from ..store.writer import StoreWriter
 from .build import BuildOptions, _checked_width, _publish, _remove_stale_partials
-from .sources import InputFile, fingerprint_inputs, resolve_inputs
-from .tables import (
-    arrow_table,
-    check_same_key_types,
-    choose_columns,
-    describe,
-    scan_sql,
-    sniff_text,
-    sql_ident,
+from .delta import (
+    as_keys,
+    count_below,
+    distinct_pairs,
+    equal_at,
+    pack_pairs,
+    read_delta,
+    split_pairs,
+    unique_keys,
 )
+from .sources import InputFile, fingerprint_inputs, resolve_inputs
 
 CHUNK_EDGES = 1 << 21  # edges of the new store handled at once (about 100 MiB of temporaries)
-_LOW = np.uint64(0xFFFFFFFF)
-
-
-@dataclass
-class _Pairs:
-    """A delta side: distinct (src, dst) pairs as indices into the sorted delta keys, packed
-    ``dst << 32 | src`` (uint64, ascending), and how many rows it had."""
-
-    packed: np.ndarray
-    rows: int
-    loop_rows: int = 0
-
-
-def _split(packed: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(dst, src) as int64 from packed ``dst << 32 | src``."""
-    return (packed >> np.uint64(32)).astype(np.int64), (packed & _LOW).astype(np.int64)
-
-
-def _pack(dst: np.ndarray, src: np.ndarray) -> np.ndarray:
-    return (dst.astype(np.uint64) << np.uint64(32)) | src.astype(np.uint64)
 
 
 # -- refusing what a patch cannot reproduce --------------------------------------------------------
@@ -103,154 +82,6 @@ def _check_store(r: StoreReader) -> None:
         raise BadInputError(
             f"{where}: {m.n_nodes:,} nodes; a patch handles fewer than 2^32", hint=hint
         )
-
-
-# -- reading the delta -----------------------------------------------------------------------------
-def _read_side(
-    con: duckdb.DuckDBPyConnection,
-    files: list[InputFile],
-    m: StoreManifest,
-    src: str,
-    dst: str,
-    header: str,
-) -> pa.Table:
-    """The (s, d) key columns of one side of the delta, validated like build inputs."""
-    where = str(files[0].path) if len(files) == 1 else f"delta files ({files[0].path}, ...)"
-    files = sniff_text(con, files, header, [src, dst])
-    cols = choose_columns(describe(con, files), where, src, dst, None)
-    check_same_key_types(con, files, cols)
-    if cols.key_type != m.key_type:
-        kind = {"int64": "integer", "string": "text"}
-        raise BadInputError(
-            f"{where}: {kind[cols.key_type]} keys, but the store has {kind[m.key_type]} keys",
-            hint="a delta must use the store's key type (cast the key columns)",
-        )
-    key_sql = "BIGINT" if m.key_type == "int64" else "VARCHAR"
-    sql = (
-        f"SELECT CAST({sql_ident(cols.src)} AS {key_sql}) AS s, "
-        f"CAST({sql_ident(cols.dst)} AS {key_sql}) AS d FROM {scan_sql(files)}"
-    )
-    try:
-        t = arrow_table(con, sql)
-    except duckdb.Error as e:
-        raise BadInputError(
-            f"{where}: cannot be read ({str(e).splitlines()[0]})",
-            hint="check that every delta file is complete and holds keys of one type",
-        ) from None
-    for name, col in (("s", cols.src), ("d", cols.dst)):
-        if t.column(name).null_count:
-            # name the first file holding a null key in this column
-            bad = next(
-                (
-                    f
-                    for f in files
-                    if con.execute(
-                        f"SELECT count(*) FROM {scan_sql([f])} WHERE {sql_ident(col)} IS NULL"
-                    ).fetchall()[0][0]
-                ),
-                files[0],
-            )
-            raise BadInputError(
-                f"{bad.path}: {t.column(name).null_count:,} rows have a null '{col}'",
-                hint="a delta edge needs both keys: remove those rows from the delta",
-            )
-    return t
-
-
-def _read_delta(
-    paths: Sequence[str | os.PathLike[str]],
-    m: StoreManifest,
-    src: str,
-    dst: str,
-    header: str,
-    threads: int | None,
-) -> tuple[list[InputFile], pa.Table]:
-    if not paths:
-        empty = pa.array([], type=pa.int64() if m.key_type == "int64" else pa.string())
-        return [], pa.table({"s": empty, "d": empty})
-    files = resolve_inputs([str(p) for p in paths])
-    con = duckdb.connect()
-    try:
-        if threads:
-            con.execute(f"SET threads = {int(threads)}")
-        return files, _read_side(con, files, m, src, dst, header)
-    finally:
-        con.close()
-
-
-# -- keys ------------------------------------------------------------------------------------------
-def _as_keys(a: pa.ChunkedArray | pa.Array, key_type: str) -> Any:
-    """Keys as a searchable array: int64 numpy for integer keys, an Arrow string array else."""
-    if isinstance(a, pa.ChunkedArray):
-        a = a.combine_chunks()
-    if key_type == "int64":
-        return np.asarray(a.to_numpy(zero_copy_only=False), dtype=np.int64)
-    return a.cast(pa.large_string())
-
-
-def _count_below(sorted_keys: Any, q: Any, key_type: str) -> np.ndarray:
-    """For each key of ``q``, how many of ``sorted_keys`` are smaller (a batched binary search;
-    Arrow compares strings byte by byte, the order of a build's ids)."""
-    if key_type == "int64":
-        return np.searchsorted(sorted_keys, q, side="left").astype(np.int64)
-    lo = np.zeros(len(q), dtype=np.int64)
-    hi = np.full(len(q), len(sorted_keys), dtype=np.int64)
-    while True:
-        act = np.flatnonzero(lo < hi)
-        if act.size == 0:
-            return lo
-        mid = (lo[act] + hi[act]) // 2
-        less = pc.less(pc.take(sorted_keys, pa.array(mid)), pc.take(q, pa.array(act)))
-        lt = np.asarray(less.to_numpy(zero_copy_only=False), dtype=bool)
-        lo[act] = np.where(lt, mid + 1, lo[act])
-        hi[act] = np.where(lt, hi[act], mid)
-
-
-def _equal_at(sorted_keys: Any, pos: np.ndarray, q: Any, key_type: str) -> np.ndarray:
-    """Whether ``sorted_keys[pos[i]] == q[i]`` (False where ``pos`` is past the end)."""
-    ok = pos < len(sorted_keys)
-    idx = np.flatnonzero(ok)
-    if key_type == "int64":
-        ok[idx] = sorted_keys[pos[idx]] == q[idx]
-    elif idx.size:
-        eq = pc.equal(pc.take(sorted_keys, pa.array(pos[idx])), pc.take(q, pa.array(idx)))
-        ok[idx] = np.asarray(eq.to_numpy(zero_copy_only=False), dtype=bool)
-    return ok
-
-
-def _unique_keys(t_add: pa.Table, t_rem: pa.Table, key_type: str) -> tuple[Any, list[np.ndarray]]:
-    """The delta's distinct keys, sorted, and each key column as indices into them."""
-    cols = [t.column(c) for t in (t_add, t_rem) for c in ("s", "d")]
-    if key_type == "int64":
-        arrs = [_as_keys(c, key_type) for c in cols]
-        allk = np.concatenate(arrs)
-        order = np.argsort(allk, kind="stable")
-        srt = allk[order]
-        first = np.ones(srt.shape[0], dtype=bool)
-        first[1:] = srt[1:] != srt[:-1]
-        inv = np.empty(srt.shape[0], dtype=np.int64)
-        inv[order] = np.cumsum(first) - 1  # the rank of each key among the distinct keys
-        bounds = np.cumsum([0] + [x.shape[0] for x in arrs])
-        return srt[first], [inv[bounds[i] : bounds[i + 1]] for i in range(4)]
-    allk = pa.concat_arrays([_as_keys(c, key_type) for c in cols])
-    uniq = pc.unique(allk)
-    uniq = pc.take(uniq, pc.sort_indices(uniq))
-    return uniq, [
-        np.asarray(pc.index_in(_as_keys(c, key_type), value_set=uniq), dtype=np.int64) for c in cols
-    ]
-
-
-def _sorted_unique(a: np.ndarray) -> np.ndarray:
-    """np.unique by sorting: on 5.2 M int64 keys 0.09 s against 5.5 s for np.unique (numpy
-    2.4, whose hash path is slow here; measured on this machine)."""
-    a = np.sort(a)
-    keep = np.ones(a.shape[0], dtype=bool)
-    keep[1:] = a[1:] != a[:-1]
-    return a[keep]
-
-
-def _distinct(d: np.ndarray, s: np.ndarray) -> np.ndarray:
-    return _sorted_unique(_pack(d, s))
 
 
 # -- looking pairs up in the old shards ------------------------------------------------------------
@@ -363,7 +194,7 @@ def patch_store(
         raise BadInputError(
             f"{out_p} already exists", hint="pass --overwrite to replace it, or pick another --out"
         )
-    r = StoreReader.open(old)
+    r = StoreReader.open(Path(old))
     _check_store(r)
     m = r.manifest
     opts = dict(m.options)
@@ -371,8 +202,8 @@ def patch_store(
     header = str(opts.get("header", "auto"))
     t0 = time.monotonic()
     rep.event("phase", "reading the delta...", phase="delta")
-    add_files, t_add = _read_delta(add, m, src, dst, header, threads)
-    rem_files, t_rem = _read_delta(remove, m, src, dst, header, threads)
+    add_files, t_add = read_delta(add, m, src, dst, header, threads)
+    rem_files, t_rem = read_delta(remove, m, src, dst, header, threads)
     rep.event("phase", "verifying the old store's checksums...", phase="verify")
     r.verify_checksums(
         lambda name, i, n: rep.progress("verifying the old store", i + 1, n, "files")
@@ -415,20 +246,21 @@ def _patch(
     drop_loops = m.options.get("self_loops") == "drop"
     rep.event("phase", "looking the delta up in the old store...", phase="lookup")
     # 1. delta keys -> old ids (-1: not in the store)
-    uniq, (a_s, a_d, r_s, r_d) = _unique_keys(t_add, t_rem, kt)
-    old_keys = _as_keys(r.keys(), kt)
-    below = _count_below(old_keys, uniq, kt)
-    in_store = _equal_at(old_keys, below, uniq, kt)
+    uniq, (a_s, a_d, r_s, r_d) = unique_keys(t_add, t_rem, kt)
+    rep.event("phase", "reading the old keys...", phase="keys")
+    old_keys = as_keys(r.keys(), kt)
+    below = count_below(old_keys, uniq, kt)
+    in_store = equal_at(old_keys, below, uniq, kt)
     old_of_u = np.where(in_store, below, -1)
     # 2. distinct pairs (indices into uniq), the self-loop rule, and their fate in the old store
     add_loop_rows = int(np.count_nonzero(a_s == a_d))
     keep = a_s != a_d if drop_loops else slice(None)
-    A = _distinct(a_d[keep], a_s[keep])
-    R = _distinct(r_d, r_s)
+    A = distinct_pairs(a_d[keep], a_s[keep])
+    R = distinct_pairs(r_d, r_s)
     slot = np.asarray(r.read_slot())
 
     def present(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        d, s = _split(p)
+        d, s = split_pairs(p)
         od, os_ = old_of_u[d], old_of_u[s]
         both = (od >= 0) & (os_ >= 0)
         hit = np.zeros(p.shape[0], dtype=bool)
@@ -436,19 +268,21 @@ def _patch(
         hit[both], at[both] = _present(r, slot, od[both], os_[both])
         return hit, at
 
+    rep.event("phase", "searching the old shards for the delta's edges...", phase="search")
     (a_present, _), (r_present, r_at) = present(A), present(R)
     gone = r_present & ~np.isin(R, A, assume_unique=True)
     r_eff = R[gone]  # edges really removed
     rem_at = np.sort(r_at[gone])  # and where they sit in the old shards
     a_eff = A[~a_present]  # edges really added
     # 3. new degrees, vanished and new nodes, the monotone old id -> new id map
+    rep.event("phase", "numbering the nodes...", phase="number")
     in_deg = np.array(r.in_degree(), dtype=np.int64)
     out_deg = np.array(r.out_degree(), dtype=np.int64)
-    rd, rs = _split(r_eff)
+    rd, rs = split_pairs(r_eff)
     rd, rs = old_of_u[rd], old_of_u[rs]
     in_deg -= np.bincount(rd, minlength=n_old)
     out_deg -= np.bincount(rs, minlength=n_old)
-    ad_u, as_u = _split(a_eff)
+    ad_u, as_u = split_pairs(a_eff)
     touched = np.zeros(n_old, dtype=bool)  # old nodes given an added edge
     touched[old_of_u[ad_u][old_of_u[ad_u] >= 0]] = True
     touched[old_of_u[as_u][old_of_u[as_u] >= 0]] = True
@@ -483,8 +317,8 @@ def _patch(
     new_out = np.zeros(n_new, dtype=np.int64)
     new_in[old_to_new[kept]] = in_deg[kept]
     new_out[old_to_new[kept]] = out_deg[kept]
-    add_new = np.sort(_pack(u_to_new[ad_u], u_to_new[as_u]))  # added edges in new ids
-    nd, ns = _split(add_new)
+    add_new = np.sort(pack_pairs(u_to_new[ad_u], u_to_new[as_u]))  # added edges in new ids
+    nd, ns = split_pairs(add_new)
     new_in += np.bincount(nd, minlength=n_new)
     new_out += np.bincount(ns, minlength=n_new)
     # 4. write: nodes, degrees, read slots and offsets, then the shards chunk by chunk
@@ -603,9 +437,9 @@ def _write_shards(
             keep = np.ones(e1 - e0, dtype=bool)
             keep[rem_at[lo:hi] - e0] = False
             dst, src = dst[keep], src[keep]
-        lo, hi = np.searchsorted(add_new, _pack(np.array([a, b]), np.zeros(2, dtype=np.int64)))
+        lo, hi = np.searchsorted(add_new, pack_pairs(np.array([a, b]), np.zeros(2, dtype=np.int64)))
         if hi > lo:
-            ad, as_ = _split(add_new[lo:hi])
+            ad, as_ = split_pairs(add_new[lo:hi])
             # merge by destination: each added edge goes after the old edges of its row
             at = np.searchsorted(dst, ad, side="right") + np.arange(ad.shape[0])
             mask = np.ones(dst.shape[0] + ad.shape[0], dtype=bool)
@@ -638,14 +472,32 @@ def _manifest(
     fp_opts = {k: opts.get(k) for k in ("src", "dst", "self_loops", "block_nodes")}
     add_fp = fingerprint_inputs(add_files, fp_opts)
     rem_fp = fingerprint_inputs(rem_files, fp_opts)
-    top = hashlib.sha256(
-        f"patch {m.fingerprint} {add_fp['fingerprint']} {rem_fp['fingerprint']}".encode()
-    )
     input_info = {
-        "fingerprint": top.hexdigest(),
+        "fingerprint": patched_fingerprint(m.fingerprint, add_fp, rem_fp),
         "patched_from": m.fingerprint,
         "patched_from_path": str(r.path),
         "add": add_fp,
         "remove": rem_fp,
     }
     return w.write_manifest(m.key_type, input_info, opts, counts)
+
+
+# -- the fingerprint of a patched store, also computed by refresh before patching ----------------
+def delta_input_fingerprints(
+    m: StoreManifest,
+    add: Sequence[str | os.PathLike[str]],
+    remove: Sequence[str | os.PathLike[str]],
+) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The input fingerprints of both sides of a delta to the store of manifest ``m``."""
+    fp_opts = {k: m.options.get(k) for k in ("src", "dst", "self_loops", "block_nodes")}
+    sides = [resolve_inputs([str(p) for p in paths]) if paths else [] for paths in (add, remove)]
+    return fingerprint_inputs(sides[0], fp_opts), fingerprint_inputs(sides[1], fp_opts)
+
+
+def patched_fingerprint(
+    old_fingerprint: str, add_fp: dict[str, Any], rem_fp: dict[str, Any]
+) -> str:
+    """``input["fingerprint"]`` of a patched store: the old store and both sides of the delta."""
+    return hashlib.sha256(
+        f"patch {old_fingerprint} {add_fp['fingerprint']} {rem_fp['fingerprint']}".encode()
+    ).hexdigest()
