@@ -59,7 +59,9 @@ def prepare(store: Path, work: Path, fraction: float, seed: int) -> dict[str, in
     for b in range(r.n_blocks):
         sh = r.shard(b)
         off = np.asarray(sh.offsets)
-        dst = np.repeat(np.arange(sh.info.first_node, sh.info.first_node + sh.info.n_nodes), np.diff(off))
+        dst = np.repeat(
+            np.arange(sh.info.first_node, sh.info.first_node + sh.info.n_nodes), np.diff(off)
+        )
         src = id_of_slot[np.asarray(sh.sources)]
         gone = rng.random(src.shape[0]) < fraction
         removed_s.append(keys[src[gone]])
@@ -70,8 +72,12 @@ def prepare(store: Path, work: Path, fraction: float, seed: int) -> dict[str, in
     rs, rd = np.concatenate(removed_s), np.concatenate(removed_d)
     pq.write_table(pa.table({"src": rs, "dst": rd}), work / "remove.parquet")
     n_add = rs.shape[0]
-    add = pa.table({"src": keys[rng.integers(0, keys.shape[0], n_add)],
-                    "dst": keys[rng.integers(0, keys.shape[0], n_add)]})
+    add = pa.table(
+        {
+            "src": keys[rng.integers(0, keys.shape[0], n_add)],
+            "dst": keys[rng.integers(0, keys.shape[0], n_add)],
+        }
+    )
     pq.write_table(add, work / "add.parquet")
     pq.write_table(add, new / "part-added.parquet")
     return {"edges": r.n_edges, "removed": int(rs.shape[0]), "added": n_add, "kept": n_kept}
@@ -86,10 +92,17 @@ def npy_digests(store: Path) -> dict[str, str]:
 
 def main() -> None:
     refuse_recursion(False)
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     ap.add_argument("--store", type=Path, default=Path("/work/bench-data/s23v2"))
     ap.add_argument("--work", type=Path, default=Path("/work/bench-data/work/patch"))
-    ap.add_argument("--fraction", type=float, default=0.01, help="share of the edges removed (and as many added)")
+    ap.add_argument(
+        "--fraction",
+        type=float,
+        default=0.01,
+        help="share of the edges removed (and as many added)",
+    )
     ap.add_argument("--seed", type=int, default=7)
     ap.add_argument("--threads", type=int, default=2)
     a = ap.parse_args()
@@ -97,17 +110,40 @@ def main() -> None:
     print(machine_facts())
     print(f"load average before: {load_average()}")
     facts = prepare(a.store, a.work, a.fraction, a.seed)
-    print(f"delta: {facts['removed']:,} edges removed and {facts['added']:,} added "
-          f"of {facts['edges']:,} (seed {a.seed})")
+    print(
+        f"delta: {facts['removed']:,} edges removed and {facts['added']:,} added "
+        f"of {facts['edges']:,} (seed {a.seed})"
+    )
     p_out, f_out = a.work / "patched.store", a.work / "full.store"
     runs = []
-    patch_cmd = [SHARDRANK, "patch", str(a.store), "--add", str(a.work / "add.parquet"),
-                 "--remove", str(a.work / "remove.parquet"), "--out", str(p_out), "--overwrite",
-                 "--threads", str(a.threads), "-q"]
+    patch_cmd = [
+        SHARDRANK,
+        "patch",
+        str(a.store),
+        "--add",
+        str(a.work / "add.parquet"),
+        "--remove",
+        str(a.work / "remove.parquet"),
+        "--out",
+        str(p_out),
+        "--overwrite",
+        "--threads",
+        str(a.threads),
+        "-q",
+    ]
     runs.append(run_measured("patch", patch_cmd).check())
     print(f"load average between: {load_average()}")
-    build_cmd = [SHARDRANK, "build", str(a.work / "new"), "--out", str(f_out), "--overwrite",
-                 "--threads", str(a.threads), "-q"]
+    build_cmd = [
+        SHARDRANK,
+        "build",
+        str(a.work / "new"),
+        "--out",
+        str(f_out),
+        "--overwrite",
+        "--threads",
+        str(a.threads),
+        "-q",
+    ]
     runs.append(run_measured("build", build_cmd).check())
     print(f"load average after: {load_average()}")
     dp, df = npy_digests(p_out), npy_digests(f_out)
@@ -116,16 +152,27 @@ def main() -> None:
 
     same_keys = shardrank.open_store(p_out).keys().equals(shardrank.open_store(f_out).keys())
     m = shardrank.open_store(p_out).manifest
-    print(table([[r.name, f"{r.seconds:.1f}", f"{r.peak_bytes / GiB:.2f}"] for r in runs],
-                ["contender", "wall s", "peak RSS GiB"]))
-    print(f"patch / build: wall {runs[0].seconds / runs[1].seconds:.3f}, "
-          f"peak RSS {runs[0].peak_bytes / runs[1].peak_bytes:.3f}")
+    print(
+        table(
+            [[r.name, f"{r.seconds:.1f}", f"{r.peak_bytes / GiB:.2f}"] for r in runs],
+            ["contender", "wall s", "peak RSS GiB"],
+        )
+    )
+    print(
+        f"patch / build: wall {runs[0].seconds / runs[1].seconds:.3f}, "
+        f"peak RSS {runs[0].peak_bytes / runs[1].peak_bytes:.3f}"
+    )
     c = m.counts
-    print(f"patched store: {m.n_nodes:,} nodes, {m.n_edges:,} edges; edges_added {c['edges_added']:,}, "
-          f"edges_removed {c['edges_removed']:,}, additions_present {c['additions_present']:,}, "
-          f"nodes_added {c['nodes_added']:,}, nodes_vanished {c['nodes_vanished']:,}")
-    print(f"identical: {len(dp)} .npy files {'all equal' if same_npy else 'DIFFER'} by sha256; "
-          f"node keys {'equal' if same_keys else 'DIFFER'}")
+    print(
+        f"patched store: {m.n_nodes:,} nodes, {m.n_edges:,} edges; "
+        f"edges_added {c['edges_added']:,}, "
+        f"edges_removed {c['edges_removed']:,}, additions_present {c['additions_present']:,}, "
+        f"nodes_added {c['nodes_added']:,}, nodes_vanished {c['nodes_vanished']:,}"
+    )
+    print(
+        f"identical: {len(dp)} .npy files {'all equal' if same_npy else 'DIFFER'} by sha256; "
+        f"node keys {'equal' if same_keys else 'DIFFER'}"
+    )
     if not (same_npy and same_keys):
         bad = sorted(k for k in set(dp) | set(df) if dp.get(k) != df.get(k))
         raise SystemExit(f"stores differ: {bad[:10]}")
