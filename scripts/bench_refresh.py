@@ -11,6 +11,10 @@ Steps (each refresh is a child process running the CLI, timed from outside)::
     4. home C: refresh B                 a fresh home: cold                    <- baseline
     5. (optional, --solver) rank W's store of B cold and warm outside refresh, to separate the
        solver from the build
+    6. (optional, --delta) home D, a copy of W after night 1: refresh with the change from A to
+       B as a delta (--add/--remove edge tables, written outside the timing), which patches the
+       published store instead of building from the whole snapshot  <- measured; its store must
+       be identical (every .npy file) to W's and C's store of B
 
 Prints iterations, seconds per phase and the ratios warm / cold; writes the same as JSON
 (--json-out). Figures and commands go into docs/performance.md ("Refresh").
@@ -61,6 +65,40 @@ def churn(src_dir: Path, out_dir: Path, frac: float, seed: int) -> dict[str, Any
     return {"parts": len(parts), "edges": total, "rewired": changed, "fraction": changed / total}
 
 
+def write_delta(a_dir: Path, b_dir: Path, out_dir: Path) -> dict[str, int]:
+    """The change from snapshot A to B as two edge tables: pairs of B's deduplicated edge set
+    not in A's (added) and of A's not in B's (removed). Keys are int64 below 2^31 here, so a
+    pair packs into one uint64."""
+    def edge_set(folder: Path) -> np.ndarray:
+        parts = []
+        for f in sorted(p for p in folder.iterdir() if p.suffix == ".parquet"):
+            t = pq.read_table(f)
+            s = t.column("src").to_numpy().astype(np.uint64)
+            d = t.column("dst").to_numpy().astype(np.uint64)
+            parts.append(np.unique(s << np.uint64(32) | d))
+        return np.unique(np.concatenate(parts))
+
+    ea, eb = edge_set(a_dir), edge_set(b_dir)
+    added, removed = np.setdiff1d(eb, ea, assume_unique=True), np.setdiff1d(ea, eb, assume_unique=True)
+    del ea, eb
+    if out_dir.exists():
+        shutil.rmtree(out_dir)
+    out_dir.mkdir(parents=True)
+    for name, pairs in (("add", added), ("remove", removed)):
+        src = (pairs >> np.uint64(32)).astype(np.int64)
+        dst = (pairs & np.uint64(0xFFFFFFFF)).astype(np.int64)
+        pq.write_table(pa.table({"src": src, "dst": dst}), out_dir / f"{name}.parquet")
+    return {"added": int(added.size), "removed": int(removed.size)}
+
+
+def store_digest(store: Path) -> dict[str, str]:
+    """sha256 of every .npy file of a store (nodes.parquet bytes may differ by writer)."""
+    import hashlib
+
+    return {str(p.relative_to(store)): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(store.rglob("*.npy"))}
+
+
 def _children_cpu() -> float:
     ru = resource.getrusage(resource.RUSAGE_CHILDREN)
     return ru.ru_utime + ru.ru_stime
@@ -75,8 +113,9 @@ def _run(cmd: list[str]) -> tuple[float, float, str, str, int]:
     return time.perf_counter() - t0, _children_cpu() - c0, p.stdout, p.stderr, p.returncode
 
 
-def refresh(edges: Path, home: Path, extra: list[str]) -> tuple[float, float, dict[str, Any]]:
-    cmd = [sys.executable, "-c", CLI, "refresh", "--edges", str(edges), "--home", str(home), "-q", *extra]
+def refresh(edges: Path | None, home: Path, extra: list[str]) -> tuple[float, float, dict[str, Any]]:
+    inputs = ["--edges", str(edges)] if edges is not None else []
+    cmd = [sys.executable, "-c", CLI, "refresh", *inputs, "--home", str(home), "-q", *extra]
     wall, cpu, out, err, code = _run(cmd)
     if code != 0:
         raise SystemExit(f"refresh failed (exit {code}):\n{err[-3000:]}")
@@ -167,6 +206,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--repeat", type=int, default=1, help="--solver: alternate cold and warm this many times (medians)")
     ap.add_argument("--residual-profile", action="store_true",
                     help="also show where the warm start's residual sits (does adaptive skipping apply?)")
+    ap.add_argument("--delta", action="store_true",
+                    help="also refresh night 2 from a delta (--add/--remove) in a copy of the warm home")
     ap.add_argument("--json-out", type=Path, help="write the figures as JSON here")
     ap.add_argument("--keep-work", action="store_true", help="leave the work directory in place")
     a = ap.parse_args(argv)
@@ -183,11 +224,28 @@ def main(argv: list[str] | None = None) -> int:
     read_all(a.edges)
     t_a, c_a, s_a = refresh(a.edges, home_w, extra)
     print(f"night 1 (cold, setup): {t_a:.1f} s wall, {c_a:.1f} s CPU, {s_a['iterations']['count']} iterations", flush=True)
+    home_d = a.work / "home-delta"
+    if a.delta:
+        shutil.rmtree(home_d, ignore_errors=True)
+        shutil.copytree(home_w, home_d, symlinks=True)
+        d_info = write_delta(a.edges, snap_b, a.work / "delta")
+        print(f"delta A -> B: {d_info['added']:,} edges added, {d_info['removed']:,} removed "
+              f"({a.work / 'delta'})", flush=True)
     read_all(snap_b)
     t_w, c_w, s_w = refresh(snap_b, home_w, extra)
     print(f"night 2 warm: {t_w:.1f} s wall, {c_w:.1f} s CPU", flush=True)
     t_c, c_c, s_c = refresh(snap_b, home_c, extra)
     print(f"night 2 cold: {t_c:.1f} s wall, {c_c:.1f} s CPU", flush=True)
+    if a.delta:
+        dd = a.work / "delta"
+        t_d, c_d, s_d = refresh(None, home_d, [*extra, "--add", str(dd / "add.parquet"),
+                                                "--remove", str(dd / "remove.parquet")])
+        print(f"night 2 warm from the delta: {t_d:.1f} s wall, {c_d:.1f} s CPU", flush=True)
+        same = store_digest(home_d / s_d["store"]) == store_digest(home_c / s_c["store"]) \
+            == store_digest(home_w / s_w["store"])
+        print(f"  stores of B identical (patched, warm full build, cold full build): {same}")
+        if not same:
+            raise SystemExit("the patched store differs from the full build")
     out: dict[str, Any] = {"edges": str(a.edges), "churn": info, "threads": a.threads, "memory": a.memory,
                            "night1": {"wall": t_a, "cpu": c_a, "summary": s_a},
                            "warm": {"wall": t_w, "cpu": c_w, "summary": s_w},
@@ -201,6 +259,16 @@ def main(argv: list[str] | None = None) -> int:
     print(row("total (in process) s", s_w["seconds"]["total"], s_c["seconds"]["total"]))
     print(row("wall (process) s", t_w, t_c))
     print(row("CPU (process) s", c_w, c_c))
+    if a.delta:
+        out["delta"] = {"wall": t_d, "cpu": c_d, "summary": s_d}
+        print(f"\nrefresh of snapshot B from the delta (home D) against the same cold refresh (home C)")
+        print(f"  {'':<22} {'delta':>12} {'cold':>12} {'delta/cold':>8}")
+        print(row("iterations", s_d["iterations"]["count"], s_c["iterations"]["count"]))
+        for p in [p for p in s_d["seconds"] if p != "total"]:
+            print(row(f"{p} s", s_d["seconds"].get(p), s_c["seconds"].get(p)))
+        print(row("total (in process) s", s_d["seconds"]["total"], s_c["seconds"]["total"]))
+        print(row("wall (process) s", t_d, t_c))
+        print(row("CPU (process) s", c_d, c_c))
     print(f"  cold estimate in the warm summary: {s_w['iterations'].get('cold_estimate')} iterations; "
           f"error bounds {s_w['error_bound']:.2e} (warm), {s_c['error_bound']:.2e} (cold)")
     if a.solver:
@@ -236,7 +304,7 @@ def main(argv: list[str] | None = None) -> int:
     if a.json_out:
         a.json_out.write_text(json.dumps(out, indent=2, default=str))
     if not a.keep_work:
-        for p in (snap_b, home_w, home_c, a.work / "solver-cold", a.work / "solver-warm"):
+        for p in (snap_b, home_w, home_c, home_d, a.work / "delta", a.work / "solver-cold", a.work / "solver-warm"):
             shutil.rmtree(p, ignore_errors=True)
     return 0
 

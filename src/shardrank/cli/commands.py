@@ -128,7 +128,7 @@ def cmd_refresh(a: argparse.Namespace, rep: Reporter) -> int:
         # one line on stdout, also when the result is refused (the error follows on stderr)
         print(json.dumps(summary, default=str), flush=True)
 
-    api.refresh(a.edges, a.home, o, rep, on_summary=print_summary)
+    api.refresh(a.edges, a.home, o, rep, on_summary=print_summary, add=a.add, remove=a.remove)
     return 0
 
 

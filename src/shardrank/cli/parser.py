@@ -251,11 +251,21 @@ One scheduled recomputation in a home directory, safe to run from cron or a time
 A run that fails validation or a guard is kept but not published (exit 3, 4 or 5).
 See docs/nightly.md.
 
+When the pipeline knows what changed, give the change instead of the whole snapshot:
+--add and --remove edge tables patch the published store (same result as a refresh of the
+whole new snapshot, much less work; unweighted stores built without --nodes).
+
 examples:
   shardrank refresh --edges crawl/2026-12-01/ --home /srv/rank
   shardrank refresh --edges 'links/*.parquet' --home /srv/rank --keep 3 --max-l1 0.2 --min-overlap 1000:0.8
+  shardrank refresh --add changes/12-02/added.parquet --remove changes/12-02/removed.parquet --home /srv/rank
 """, commands.cmd_refresh)
-    p.add_argument("--edges", nargs="+", required=True, metavar="SOURCE", help="edge files, directories or glob patterns of tonight's snapshot")
+    p.add_argument("--edges", nargs="+", default=[], metavar="SOURCE", help="edge files, directories or glob patterns of tonight's snapshot")
+    p.add_argument("--add", nargs="+", default=[], metavar="FILE",
+                   help="instead of --edges: edge tables added since the published run (a delta; "
+                   "the published store is patched instead of rebuilt, see docs/delta.md)")
+    p.add_argument("--remove", nargs="+", default=[], metavar="FILE",
+                   help="instead of --edges: edge tables removed since the published run")
     p.add_argument("--home", required=True, metavar="DIR", help="the refresh home: generations, the lock and the 'current' link live here")
     p.add_argument("--keep", type=int, default=settings.REFRESH_KEEP, metavar="N",
                    help="generations to keep (the published run and the store it uses are never removed)")

@@ -90,3 +90,25 @@ def teleport_hash(store: Path, o: RankOptions) -> str:
     for a in (ids, vals):
         h.update(a.tobytes())
     return h.hexdigest()
+
+
+def delta_fingerprint(
+    published: StoreManifest, add: Sequence[str | os.PathLike[str]],
+    remove: Sequence[str | os.PathLike[str]],
+) -> str:
+    """The ``input["fingerprint"]`` of the store that patching the published store with this
+    delta writes (ingest/patch.py records the same value; a test checks that they agree).
+
+    When the published store is itself this delta applied to its base (the same delta given
+    again), its own fingerprint: the refresh is then up to date instead of patching twice.
+    Reads every delta byte once (sha256).
+    """
+    from ..ingest.patch import delta_input_fingerprints, patched_fingerprint
+
+    add_fp, rem_fp = delta_input_fingerprints(published, add, remove)
+    inp = published.input
+    if (inp.get("add", {}).get("fingerprint"), inp.get("remove", {}).get("fingerprint")) == (
+        add_fp["fingerprint"], rem_fp["fingerprint"]
+    ):
+        return str(inp["fingerprint"])
+    return patched_fingerprint(published.fingerprint, add_fp, rem_fp)

@@ -4,8 +4,10 @@ Order of work (each step's seconds go into the summary)::
 
     lock        flock HOME/refresh.lock without waiting (BusyError, exit 75, if taken)
     fingerprint content fingerprint of the snapshot + the options that shape the store
+                (with a delta instead of a snapshot: of the published store + the delta)
     plan        up to date? an unfinished generation to finish? else a new generation
     build       a new store generation, or reuse the newest store with the same fingerprint
+                (with a delta: the published store patched, see ingest/patch.py)
     rank        warm-started by key from the published run, with checkpoints
                 (an interrupted generation is resumed from its newest checkpoint instead)
     validate    converged within tol, mass 1, no NaN or negative score, node count as built
@@ -38,6 +40,7 @@ from ..errors import (
     ShardrankError,
 )
 from ..ingest.build import build_store
+from ..ingest.patch import patch_store
 from ..progress import Reporter
 from ..results.result import read_run_json
 from ..solve.run import rank, resume
@@ -45,7 +48,7 @@ from ..store.atomic import write_json_atomic
 from ..store.manifest import read_manifest
 from . import generations as gens
 from .checks import check_guards, cold_estimate, compare_with_previous, validate_run
-from .fingerprint import check_same_schema, input_fingerprint
+from .fingerprint import check_same_schema, delta_fingerprint, input_fingerprint
 from .hooks import PausePoint, PausingReporter
 from .lock import HomeLock
 from .options import RefreshOptions
@@ -96,12 +99,19 @@ def refresh(
     options: RefreshOptions | None = None,
     reporter: Reporter | None = None,
     on_summary: Callable[[Summary], None] | None = None,
+    add: Sequence[str | os.PathLike[str]] = (),
+    remove: Sequence[str | os.PathLike[str]] = (),
 ) -> Summary:
     """Recompute the ranking of a new snapshot in ``home`` and publish it as ``home/current``.
 
     Parameters
     ----------
-    edges : edge files, directories or globs (as for :func:`shardrank.build_store`)
+    edges : edge files, directories or globs (as for :func:`shardrank.build_store`); empty
+        when the night's change comes as a delta (``add``/``remove``)
+    add, remove : a delta instead of a snapshot: edge tables added and removed since the
+        published run's graph; the published store is patched (:func:`shardrank.patch_store`)
+        instead of building from a whole snapshot. Needs a published run (an unweighted store
+        built without --nodes). Running the same delta again finds the result up to date.
     home : the refresh home (created if missing); readers use ``home/current/scores.parquet``
     options : :class:`RefreshOptions`
     reporter : progress and events
@@ -123,6 +133,12 @@ def refresh(
     """
     o = options or RefreshOptions()
     o.validate()
+    if bool(edges) == bool(add or remove):
+        raise BadInputError(
+            "give the night's input either as a snapshot (--edges) or as a delta (--add/--remove)",
+            hint="--edges SOURCE... for a whole snapshot; --add FILE... and/or --remove FILE... "
+            "for the change since the published run",
+        )
     rep = reporter or Reporter()
     home_p = Path(home)
     home_p.mkdir(parents=True, exist_ok=True)
@@ -131,7 +147,7 @@ def refresh(
         lock = HomeLock(home_p)
         lock.acquire()
     try:
-        return _refresh_locked(edges, home_p, o, rep, clock, on_summary)
+        return _refresh_locked(edges, home_p, o, rep, clock, on_summary, list(add), list(remove))
     finally:
         lock.release()
 
@@ -143,18 +159,33 @@ def _refresh_locked(
     rep0: Reporter,
     clock: _Clock,
     on_summary: Callable[[Summary], None] | None,
+    add: list[str | os.PathLike[str]],
+    remove: list[str | os.PathLike[str]],
 ) -> Summary:
     pause = PausePoint(home)
     rep = PausingReporter(rep0, pause)
     for name in gens.clean_leftovers(home):
         rep.event("cleanup", f"removed {name}, left by an interrupted refresh")
-    with clock.phase("fingerprint"):
-        rep.event("phase", "fingerprinting the snapshot...", phase="fingerprint")
-        snap = input_fingerprint(edges, o.build)
-    fp = snap.fingerprint
     published = published_run(home)
-    if published is not None and (pstore := gens.store_of_run(home, published)) is not None:
-        check_same_schema(snap, o.build, read_manifest(pstore))
+    pstore = gens.store_of_run(home, published) if published is not None else None
+    base: Path | None = None  # the store a delta patches
+    with clock.phase("fingerprint"):
+        if add or remove:
+            rep.event("phase", "fingerprinting the delta...", phase="fingerprint")
+            if pstore is None:
+                raise BadInputError(
+                    f"{home}: a delta (--add/--remove) patches the published run's store, and "
+                    "there is none yet",
+                    hint="run the first refresh with --edges (a whole snapshot)",
+                )
+            base = pstore
+            fp = delta_fingerprint(read_manifest(pstore), add, remove)
+        else:
+            rep.event("phase", "fingerprinting the snapshot...", phase="fingerprint")
+            snap = input_fingerprint(edges, o.build)
+            fp = snap.fingerprint
+            if pstore is not None:
+                check_same_schema(snap, o.build, read_manifest(pstore))
     plan = make_plan(home, fp, o, published)
     if plan.note:
         rep.event("plan", plan.note)
@@ -184,7 +215,11 @@ def _refresh_locked(
             store = home / gens.STORES / gens.gen_name(number)
             with clock.phase("build"):
                 rep.building = store
-                build_store(edges, store, replace(o.build, overwrite=False), rep)
+                if base is not None:
+                    patch_store(base, store, add, remove, reporter=rep, src=o.build.src,
+                                dst=o.build.dst, threads=o.build.threads)
+                else:
+                    build_store(edges, store, replace(o.build, overwrite=False), rep)
                 rep.building = None
         run = home / gens.RUNS / gens.gen_name(number)
         ro = replace(o.rank, init=str(published) if published is not None else None)
