@@ -80,3 +80,36 @@ def test_sources_are_slots_by_descending_out_degree_sorted_within_rows(tmp_path:
         given = sorted(zip(src[a:b].tolist(), w[a:b].tolist(), strict=True))
         back = sorted(zip(ids_by_slot(slot)[got_src[a:b]].tolist(), got_w[a:b].tolist(), strict=True))
         assert given == back
+
+
+@pytest.mark.parametrize("shape", ["sorted", "nearly", "far", "random", "reversed"])
+def test_relabel_rows_sorts_every_row_whatever_its_order(shape: str) -> None:
+    """Each branch of the kernel's row sort (already sorted, few inversions, one element far
+    from its place, random, reversed) against numpy's sort of the same row."""
+    from shardrank.kernels.slots import relabel_rows
+
+    rng = np.random.default_rng(len(shape))
+    lengths = [0, 1, 2, 5, 31, 33, 200, 5000]
+    row_ptr = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
+    n = 20000
+    slot = np.arange(n, dtype=np.uint32)  # identity slots: the row order is the input order
+    rows = []
+    for k in lengths:
+        x = rng.choice(n, k, replace=False)
+        x.sort()
+        if shape == "nearly" and k > 1:
+            i = rng.integers(0, k - 1, max(1, k // 50))
+            x[i], x[i + 1] = x[i + 1], x[i].copy()
+        elif shape == "far" and k > 1:
+            x = np.concatenate([x[1:], x[:1]])  # the smallest at the end
+        elif shape == "random":
+            rng.shuffle(x)
+        elif shape == "reversed":
+            x = x[::-1]
+        rows.append(x)
+    src = np.concatenate(rows).astype(np.uint32)
+    out = np.empty_like(src)
+    relabel_rows(row_ptr, src, slot, np.empty(0), out, np.empty(0))
+    for j in range(len(lengths)):
+        a, b = row_ptr[j], row_ptr[j + 1]
+        assert np.array_equal(out[a:b], np.sort(src[a:b])), (shape, lengths[j])

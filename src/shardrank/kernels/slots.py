@@ -36,17 +36,31 @@ def relabel_rows(row_ptr, src, slot, weights, src_out, weights_out):  # pragma: 
                 src_out[a + k] = mapped[order[k]]
                 weights_out[a + k] = weights[a + order[k]]
         else:
-            # in place, no allocation per row: most rows are short (insertion sort), a long
-            # one is sorted whole
+            # in place, no allocation per row. Insertion sort for short rows and for rows that
+            # arrive nearly in slot order (a patch feeds rows in the old store's slot order, and
+            # the new order differs little): its cost is the number of inversions, capped at a
+            # few moves per edge, beyond which (and for a long row in random order, as a build
+            # feeds rows in id order) the row is sorted whole.
+            descents = 0
             for e in range(a, b):
                 src_out[e] = slot[src[e]]
-            if b - a > 32:
+                if e > a and src_out[e] < src_out[e - 1]:
+                    descents += 1
+            if descents == 0:
+                continue
+            n = b - a
+            if n > 32 and descents * 16 > n:
                 src_out[a:b].sort()
                 continue
+            budget = 4 * n + 64
             for e in range(a + 1, b):
                 x = src_out[e]
                 k = e - 1
                 while k >= a and src_out[k] > x:
                     src_out[k + 1] = src_out[k]
                     k -= 1
+                    budget -= 1
                 src_out[k + 1] = x
+                if budget < 0:
+                    src_out[a:b].sort()  # still a permutation of the row: sort it whole
+                    break
