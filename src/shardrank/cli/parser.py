@@ -125,7 +125,7 @@ def _rank_opts(p: argparse.ArgumentParser, defaults: bool = True) -> None:
     g.add_argument("--max-iter", type=int, default=settings.MAX_ITER if defaults else None,
                    help="stop after this many iterations (exit 3 if tol was not reached; the run is saved)")
     g.add_argument("--method", choices=("power", "gauss-seidel"), default=settings.METHOD if defaults else None,
-                   help="power iteration, or block Gauss-Seidel (uses each fresh block at once; fewer iterations)")
+                   help="power iteration, or block Gauss-Seidel (uses each fresh block at once; fewer iterations, the default)")
     g.add_argument("--dead-ends", choices=("teleport", "uniform"), default=settings.DEAD_ENDS if defaults else None,
                    help="where a dead end's score goes: along the teleport vector, or spread uniformly")
 
@@ -137,8 +137,10 @@ out-link with probability d (the damping factor) and otherwise teleports. A dead
 out-links) hands its whole score to the teleport distribution (or, with --dead-ends uniform,
 to every node alike).
 
-The run stops when the L1 distance to the exact answer is provably at most --tol (from the
-measured residual: ||x - x*||_1 <= d/(1-d) * ||Gx - x||_1), never on a guess. If --max-iter
+The run stops when the L1 distance to the exact answer is provably at most --tol, never on a
+guess: every iteration bounds it from what it measured (for a power step the residual,
+||x - x*||_1 <= d/(1-d) * ||Gx - x||_1; a Gauss-Seidel sweep bounds its own result the same
+way from its change; see docs/guide.md). If --max-iter
 comes first, the run is saved with its bound and the command exits 3.
 
 Memory: three float64 vectors of N nodes (about 24 bytes a node) plus small buffers; the
@@ -253,7 +255,7 @@ See docs/nightly.md.
 
 When the pipeline knows what changed, give the change instead of the whole snapshot:
 --add and --remove edge tables patch the published store (same result as a refresh of the
-whole new snapshot, much less work; unweighted stores built without --nodes).
+whole new snapshot, less work; unweighted stores built without --nodes).
 
 examples:
   shardrank refresh --edges crawl/2026-12-01/ --home /srv/rank
