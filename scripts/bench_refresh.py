@@ -279,7 +279,7 @@ def main(argv: list[str] | None = None) -> int:
     print(row("CPU (process) s", c_w, c_c))
     if a.delta:
         out["delta"] = {"wall": t_d, "cpu": c_d, "summary": s_d}
-        print(f"\nrefresh of snapshot B from the delta (home D) against the same cold refresh (home C)")
+        print("\nrefresh of snapshot B from the delta (home D) against the same cold refresh (home C)")
         print(f"  {'':<22} {'delta':>12} {'cold':>12} {'delta/cold':>8}")
         print(row("iterations", s_d["iterations"]["count"], s_c["iterations"]["count"]))
         for p in [p for p in s_d["seconds"] if p != "total"]:

@@ -16,11 +16,11 @@ import pytest
 import scipy.sparse as sp
 
 import shardrank
-from tests.conftest import read_store_csr
 from shardrank import BuildOptions
 from shardrank.ingest import build as build_mod
 from shardrank.ingest import partition
 from shardrank.store.reader import StoreReader
+from tests.conftest import read_store_csr
 
 
 def _write(dirpath: Path, src: np.ndarray, dst: np.ndarray, parts: int = 3) -> list[Path]:
