@@ -222,3 +222,52 @@ def test_empty_delta_copies_the_graph(tmp_path: Path) -> None:
     m = patch_store(s0, s1)
     assert_same_store(s1, s0)
     assert m.counts["edges_added"] == m.counts["edges_removed"] == 0
+
+
+# -- kernels/patch.py against plain numpy statements of the same job -----------------------------
+def _merge_rows_numpy(off, sources, e_base, rows_new, slot_to_new, rem_at, add_d, add_s):
+    """merge_rows over whole arrays in numpy: the old edges minus the removed ones, then every
+    added edge up to the last kept row, stably by destination (old edges first in a row)."""
+    d = np.repeat(rows_new, np.diff(off))
+    s = slot_to_new[sources[off[0] : off[-1]]]
+    keep = ~np.isin(np.arange(off[0], off[-1]) + e_base, rem_at)
+    d, s = d[keep], s[keep]
+    take = add_d <= (rows_new.max() if rows_new.shape[0] else -1)
+    dd, ss = np.concatenate([d, add_d[take]]), np.concatenate([s, add_s[take]])
+    order = np.argsort(dd, kind="stable")
+    return dd[order], ss[order], int(np.count_nonzero(take))
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_merge_rows_kernel_matches_numpy(seed: int) -> None:
+    from shardrank.kernels.patch import merge_rows
+
+    rng = np.random.default_rng(seed)
+    n_rows, n_nodes, e_base = 40, 60, 1000
+    deg = rng.integers(0, 6, n_rows)
+    off = np.concatenate([[0], np.cumsum(deg)]).astype(np.int64) + 3  # rows start mid-block
+    sources = rng.integers(0, n_nodes, int(off[-1])).astype(np.uint32)
+    slot_to_new = rng.permutation(n_nodes).astype(np.int64)
+    # monotone row map with vanished rows (-1); a vanished row loses every edge
+    gone = rng.random(n_rows) < 0.2
+    rows_new = np.where(gone, -1, np.cumsum(~gone) - 1 + np.cumsum(rng.random(n_rows) < 0.3))
+    rem = [
+        e
+        for i in range(n_rows)
+        for e in range(off[i], off[i + 1])
+        if gone[i] or rng.random() < 0.25
+    ]
+    rem_at = np.array(rem, dtype=np.int64) + e_base
+    add_d = np.sort(rng.integers(0, int(rows_new.max()) + 1, 30)).astype(np.int64)
+    add_s = rng.integers(0, n_nodes, 30).astype(np.int64)
+    want_d, want_s, n_take = _merge_rows_numpy(
+        off, sources, e_base, rows_new, slot_to_new, rem_at, add_d, add_s
+    )
+    out_d = np.full(int(off[-1]) + 30, -7, dtype=np.int64)
+    out_s = np.full_like(out_d, -7)
+    o, r, k = merge_rows(
+        off, sources, e_base, rows_new, slot_to_new, rem_at, 0, add_d, add_s, 0, out_d, out_s, 0
+    )
+    assert (o, r, k) == (want_d.shape[0], rem_at.shape[0], n_take)
+    np.testing.assert_array_equal(out_d[:o], want_d)
+    np.testing.assert_array_equal(out_s[:o], want_s)

@@ -37,6 +37,7 @@ import pyarrow.parquet as pq
 
 from .. import settings
 from ..errors import BadInputError, ShardrankError
+from ..kernels.patch import merge_rows
 from ..progress import Reporter
 from ..store import layout, urls
 from ..store.manifest import StoreManifest
@@ -122,19 +123,6 @@ def _present(
         found[idx] = hit
         where[idx] = lo + base[b]
     return found, where
-
-
-def _old_rows(r: StoreReader, oa: int, ob: int, slot_to_new: np.ndarray) -> np.ndarray:
-    """New source ids of the old in-edges of old destinations ``oa .. ob - 1``, row after row
-    (-1 for a source that vanished: all its edges are removed ones)."""
-    bn = r.manifest.block_nodes
-    parts = []
-    for b in range(oa // bn, (ob - 1) // bn + 1 if ob > oa else oa // bn):
-        sh = r.shard(b)
-        first = sh.info.first_node
-        a, z = max(oa, first) - first, min(ob, first + sh.info.n_nodes) - first
-        parts.append(slot_to_new[np.asarray(sh.sources[int(sh.offsets[a]) : int(sh.offsets[z])])])
-    return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
 
 
 # -- the patch -------------------------------------------------------------------------------------
@@ -409,15 +397,28 @@ def _write_shards(
     add_new: np.ndarray,
     rep: Reporter,
 ) -> None:
-    """Stream the new in-edges, chunk by chunk of new destination ids, into the writer."""
+    """Stream the new in-edges, chunk by chunk of new destination ids, into the writer.
+
+    Rows go to the writer with their old edges in the old store's slot order (the writer's
+    relabel sort is fast on rows that arrive nearly sorted), added edges after them."""
     # old slot -> new id in one gather per edge (old slot -> old id -> new id composed once)
     slot_to_new = old_to_new[ids_by_slot(np.asarray(r.read_slot()))]
-    old_in = np.asarray(r.in_degree())
-    old_start = np.concatenate([[0], np.cumsum(old_in)])  # index of each old row's first edge
     ends = np.cumsum(new_in)
     total = int(ends[-1]) if ends.shape[0] else 0
     n_new, n_old = new_in.shape[0], pos_new.shape[0]
-    a = 0
+    add_d, add_s = split_pairs(add_new)
+    bn = r.manifest.block_nodes
+    blocks = [r.shard(b) for b in range(r.n_blocks)]
+    offs = [np.asarray(sh.offsets, dtype=np.int64) for sh in blocks]
+    srcs = [np.asarray(sh.sources) for sh in blocks]
+    e_base = np.concatenate([[0], np.cumsum([b.n_edges for b in r.manifest.blocks])]).tolist()
+    old_in = np.asarray(r.in_degree())
+    # the chunk's output buffers, reused: every old edge of the chunk plus every added edge
+    # at most (a kept old row's edges never grow beyond old + added)
+    cap = 0
+    out_d = np.empty(0, dtype=np.int64)
+    out_s = np.empty(0, dtype=np.int64)
+    a, rp, kp = 0, 0, 0
     while a < n_new:
         # the next chunk: new ids a .. b - 1 holding about CHUNK_EDGES edges (at least one row)
         b = max(
@@ -429,29 +430,38 @@ def _write_shards(
         oa, ob = int(np.searchsorted(pos_new, a)), int(np.searchsorted(pos_new, b))
         if b == n_new:
             ob = n_old
-        src = _old_rows(r, oa, ob, slot_to_new)
-        dst = np.repeat(old_to_new[oa:ob], old_in[oa:ob])
-        e0, e1 = int(old_start[oa]), int(old_start[ob])
-        lo, hi = np.searchsorted(rem_at, [e0, e1])
-        if hi > lo:  # drop the removed edges by their place in the old shards
-            keep = np.ones(e1 - e0, dtype=bool)
-            keep[rem_at[lo:hi] - e0] = False
-            dst, src = dst[keep], src[keep]
-        lo, hi = np.searchsorted(add_new, pack_pairs(np.array([a, b]), np.zeros(2, dtype=np.int64)))
-        if hi > lo:
-            ad, as_ = split_pairs(add_new[lo:hi])
-            # merge by destination: each added edge goes after the old edges of its row
-            at = np.searchsorted(dst, ad, side="right") + np.arange(ad.shape[0])
-            mask = np.ones(dst.shape[0] + ad.shape[0], dtype=bool)
-            mask[at] = False
-            md, ms = (
-                np.empty(mask.shape[0], dtype=np.int64),
-                np.empty(mask.shape[0], dtype=np.int64),
+        ka = int(np.searchsorted(add_d, b))  # added edges of this chunk end here
+        need = int(old_in[oa:ob].sum()) + (ka - kp)
+        if need > cap:
+            cap = max(need, 2 * cap)
+            out_d = np.empty(cap, dtype=np.int64)
+            out_s = np.empty(cap, dtype=np.int64)
+        o = 0
+        for blk in range(oa // bn, (ob - 1) // bn + 1 if ob > oa else 0):
+            first = r.manifest.blocks[blk].first_node
+            i0 = max(oa, first) - first
+            i1 = min(ob, first + r.manifest.blocks[blk].n_nodes) - first
+            o, rp, kp = merge_rows(
+                offs[blk][i0 : i1 + 1],
+                srcs[blk],
+                e_base[blk],
+                old_to_new[first + i0 : first + i1],
+                slot_to_new,
+                rem_at,
+                rp,
+                add_d[:ka],
+                add_s[:ka],
+                kp,
+                out_d,
+                out_s,
+                o,
             )
-            md[mask], ms[mask] = dst, src
-            md[at], ms[at] = ad, as_
-            dst, src = md, ms
-        w.add_edges(dst, src, None)
+        # added edges of new nodes after the chunk's last old row
+        tail = ka - kp
+        out_d[o : o + tail] = add_d[kp:ka]
+        out_s[o : o + tail] = add_s[kp:ka]
+        o, kp = o + tail, ka
+        w.add_edges(out_d[:o], out_s[:o], None)
         rep.progress("writing shards", int(ends[b - 1]), total, "edges", block=w._cur)
         a = b
     w.finish_shards()
