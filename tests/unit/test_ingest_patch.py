@@ -271,3 +271,48 @@ def test_merge_rows_kernel_matches_numpy(seed: int) -> None:
     assert (o, r, k) == (want_d.shape[0], rem_at.shape[0], n_take)
     np.testing.assert_array_equal(out_d[:o], want_d)
     np.testing.assert_array_equal(out_s[:o], want_s)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_renumber_and_new_degrees_kernels_match_numpy(seed: int) -> None:
+    from shardrank.kernels.patch import new_degrees, renumber
+
+    rng = np.random.default_rng(seed)
+    n = 50
+    in_old = rng.integers(0, 3, n).astype(np.int64)
+    out_old = rng.integers(0, 3, n).astype(np.int64)
+    # removed edges (old ids); at most a node's degree, as in a real store
+    rd = np.repeat(np.arange(n), rng.binomial(in_old, 0.5))
+    rs = np.repeat(np.arange(n), rng.binomial(out_old, 0.5))
+    m = min(rd.shape[0], rs.shape[0])
+    rd, rs = rng.permutation(rd)[:m], rng.permutation(rs)[:m]
+    touched = rng.integers(0, n, 4).astype(np.int64)
+    ins = np.sort(rng.integers(0, n + 1, 6)).astype(np.int64)
+    # the numpy statement (the one patch.py used before the kernel)
+    in_deg = in_old - np.bincount(rd, minlength=n)
+    out_deg = out_old - np.bincount(rs, minlength=n)
+    tch = np.zeros(n, dtype=bool)
+    tch[touched] = True
+    kept = (in_deg + out_deg > 0) | tch
+    kept_prefix = np.concatenate([[0], np.cumsum(kept)])
+    nb = np.cumsum(np.bincount(ins, minlength=n + 1))[:n]
+    want_pos = kept_prefix[:n] + nb
+    old_to_new, pos_new = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
+    at_ins = np.empty(ins.shape[0], dtype=np.int64)
+    n_kept = renumber(in_old, out_old, rd, rs, touched, ins, old_to_new, pos_new, at_ins)
+    assert n_kept == int(kept.sum())
+    np.testing.assert_array_equal(pos_new, want_pos)
+    np.testing.assert_array_equal(old_to_new, np.where(kept, want_pos, -1))
+    np.testing.assert_array_equal(at_ins, kept_prefix[ins])
+    n_new = n_kept + ins.shape[0]
+    nd = rng.integers(0, n_new, 7).astype(np.int64)
+    ns = rng.integers(0, n_new, 7).astype(np.int64)
+    want_in, want_out = np.zeros(n_new, dtype=np.int64), np.zeros(n_new, dtype=np.int64)
+    want_in[old_to_new[kept]] = in_deg[kept]
+    want_out[old_to_new[kept]] = out_deg[kept]
+    want_in += np.bincount(nd, minlength=n_new)
+    want_out += np.bincount(ns, minlength=n_new)
+    new_in, new_out = np.zeros(n_new, dtype=np.int64), np.zeros(n_new, dtype=np.int64)
+    new_degrees(in_old, out_old, old_to_new, rd, rs, nd, ns, new_in, new_out)
+    np.testing.assert_array_equal(new_in, want_in)
+    np.testing.assert_array_equal(new_out, want_out)

@@ -37,7 +37,7 @@ import pyarrow.parquet as pq
 
 from .. import settings
 from ..errors import BadInputError, ShardrankError
-from ..kernels.patch import merge_rows
+from ..kernels.patch import merge_rows, new_degrees, renumber
 from ..progress import Reporter
 from ..store import layout, urls
 from ..store.manifest import StoreManifest
@@ -264,33 +264,26 @@ def _patch(
     a_eff = A[~a_present]  # edges really added
     # 3. new degrees, vanished and new nodes, the monotone old id -> new id map
     rep.event("phase", "numbering the nodes...", phase="number")
-    in_deg = np.array(r.in_degree(), dtype=np.int64)
-    out_deg = np.array(r.out_degree(), dtype=np.int64)
+    in_old, out_old = np.asarray(r.in_degree()), np.asarray(r.out_degree())
     rd, rs = split_pairs(r_eff)
     rd, rs = old_of_u[rd], old_of_u[rs]
-    in_deg -= np.bincount(rd, minlength=n_old)
-    out_deg -= np.bincount(rs, minlength=n_old)
     ad_u, as_u = split_pairs(a_eff)
-    touched = np.zeros(n_old, dtype=bool)  # old nodes given an added edge
-    touched[old_of_u[ad_u][old_of_u[ad_u] >= 0]] = True
-    touched[old_of_u[as_u][old_of_u[as_u] >= 0]] = True
-    kept = (in_deg + out_deg > 0) | touched
+    touched = np.concatenate([old_of_u[ad_u], old_of_u[as_u]])  # old nodes given an added edge
+    touched = touched[touched >= 0]
     u_new = np.zeros(len(uniq), dtype=bool)
     u_new[ad_u] = True
     u_new[as_u] = True
     u_new &= old_of_u < 0
-    new_u = np.flatnonzero(
-        u_new
-    )  # indices into uniq of the keys that appear, ascending = key order
+    new_u = np.flatnonzero(u_new)  # indices into uniq of the keys that appear, in key order
     ins = below[new_u]  # old keys smaller than each new key
-    kept_prefix = np.concatenate([[0], np.cumsum(kept)])  # kept old ids below each old id
-    nb = np.cumsum(np.bincount(ins, minlength=n_old + 1))[:n_old]  # new keys below each old key
-    pos_new = kept_prefix[:n_old] + nb  # monotone: the new id of each kept old id
-    old_to_new = np.where(kept, pos_new, -1)
+    old_to_new = np.empty(n_old, dtype=np.int64)
+    pos_new = np.empty(n_old, dtype=np.int64)  # monotone: the new id of each kept old id
+    at_ins = np.empty(new_u.shape[0], dtype=np.int64)  # kept old ids below each new key
+    n_kept = renumber(in_old, out_old, rd, rs, touched, ins, old_to_new, pos_new, at_ins)
     u_to_new = np.full(len(uniq), -1, dtype=np.int64)
     u_to_new[in_store] = old_to_new[old_of_u[in_store]]
-    u_to_new[new_u] = np.arange(new_u.shape[0]) + kept_prefix[ins]
-    n_new = int(kept_prefix[-1]) + new_u.shape[0]
+    u_to_new[new_u] = np.arange(new_u.shape[0]) + at_ins
+    n_new = n_kept + new_u.shape[0]
     if n_new == 0:
         raise BadInputError(
             "the patch removes every edge; a store needs at least one",
@@ -301,14 +294,12 @@ def _patch(
             f"{n_new:,} nodes after the patch; a patch handles fewer than 2^32",
             hint="build the new store in full with `shardrank build`",
         )
-    new_in = np.zeros(n_new, dtype=np.int64)
-    new_out = np.zeros(n_new, dtype=np.int64)
-    new_in[old_to_new[kept]] = in_deg[kept]
-    new_out[old_to_new[kept]] = out_deg[kept]
     add_new = np.sort(pack_pairs(u_to_new[ad_u], u_to_new[as_u]))  # added edges in new ids
     nd, ns = split_pairs(add_new)
-    new_in += np.bincount(nd, minlength=n_new)
-    new_out += np.bincount(ns, minlength=n_new)
+    new_in = np.zeros(n_new, dtype=np.int64)
+    new_out = np.zeros(n_new, dtype=np.int64)
+    new_degrees(in_old, out_old, old_to_new, rd, rs, nd, ns, new_in, new_out)
+    kept = old_to_new >= 0
     # 4. write: nodes, degrees, read slots and offsets, then the shards chunk by chunk
     width = _checked_width(n_new, BuildOptions(id_width=m.options.get("id_width", "auto")))
     w = StoreWriter(tmp, n_new, m.block_nodes, f"<u{width // 8}", False)
@@ -319,7 +310,6 @@ def _patch(
     w.write_array(layout.IN_DEGREE, new_in)
     w.write_array(layout.OUT_WEIGHT, new_out.astype(np.float64))
     w.begin_shards(new_in, new_out)
-    del in_deg, out_deg, kept_prefix, nb
     _write_shards(r, w, new_in, pos_new, old_to_new, rem_at, add_new, rep)
     n_edges = m.n_edges - r_eff.shape[0] + a_eff.shape[0]
     if w.n_edges != n_edges:
@@ -345,7 +335,7 @@ def _patch(
         "additions_present": int(np.count_nonzero(a_present)),
         "removals_absent": int(np.count_nonzero(~r_present)),
         "nodes_added": int(new_u.shape[0]),
-        "nodes_vanished": int(n_old - np.count_nonzero(kept)),
+        "nodes_vanished": n_old - n_kept,
     }
     return _manifest(w, r, add_files, rem_files, counts)
 

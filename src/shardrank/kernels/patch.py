@@ -50,3 +50,70 @@ def merge_rows(
                 o += 1
                 k += 1
     return o, r, k
+
+
+@njit(cache=True)
+def renumber(
+    in_old, out_old, rem_d, rem_s, touched, ins, old_to_new, pos_new, at_ins
+):  # pragma: no cover - jit
+    """Number the nodes after a patch in one pass over the old ids (no N-sized temporaries).
+
+    Old node ``i`` is kept when an edge is left at it (``in_old[i] + out_old[i]`` minus its
+    removed edges, ``rem_d``/``rem_s`` being the old ids of both ends of every removed edge)
+    or an added edge touches it (old ids in ``touched``). New keys come in key order, the
+    ``j``-th between old keys ``ins[j] - 1`` and ``ins[j]`` (``ins`` ascending).
+
+    Fills ``pos_new[i]`` (kept old ids below ``i`` plus new keys below old key ``i``: the new
+    id of a kept ``i``, monotone), ``old_to_new[i]`` (``pos_new[i]``, or -1 for a node that
+    vanishes) and ``at_ins[j]`` (kept old ids below new key ``j``); returns the number of
+    kept old nodes.
+    """
+    n = in_old.shape[0]
+    for i in range(n):
+        pos_new[i] = 0  # scratch first: the removed edges at each node
+    for e in range(rem_d.shape[0]):
+        pos_new[rem_d[e]] += 1
+        pos_new[rem_s[e]] += 1
+    for t in range(touched.shape[0]):
+        pos_new[touched[t]] = -1  # kept whatever its degree
+    kept, j, n_ins = 0, 0, ins.shape[0]
+    for i in range(n):
+        while j < n_ins and ins[j] <= i:
+            at_ins[j] = kept
+            j += 1
+        c = pos_new[i]
+        p = kept + j
+        pos_new[i] = p
+        if c < 0 or in_old[i] + out_old[i] - c > 0:
+            old_to_new[i] = p
+            kept += 1
+        else:
+            old_to_new[i] = -1
+    while j < n_ins:
+        at_ins[j] = kept
+        j += 1
+    return kept
+
+
+@njit(cache=True)
+def new_degrees(
+    in_old, out_old, old_to_new, rem_d, rem_s, add_d, add_s, new_in, new_out
+):  # pragma: no cover - jit
+    """In- and out-degrees by new id: the kept old degrees, less the removed edges (old ids
+    ``rem_d``/``rem_s``), plus the added ones (new ids ``add_d``/``add_s``). ``new_in`` and
+    ``new_out`` come zeroed."""
+    for i in range(in_old.shape[0]):
+        q = old_to_new[i]
+        if q >= 0:
+            new_in[q] = in_old[i]
+            new_out[q] = out_old[i]
+    for e in range(rem_d.shape[0]):
+        q = old_to_new[rem_d[e]]
+        if q >= 0:
+            new_in[q] -= 1
+        q = old_to_new[rem_s[e]]
+        if q >= 0:
+            new_out[q] -= 1
+    for e in range(add_d.shape[0]):
+        new_in[add_d[e]] += 1
+        new_out[add_s[e]] += 1
