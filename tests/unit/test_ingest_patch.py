@@ -316,3 +316,15 @@ def test_renumber_and_new_degrees_kernels_match_numpy(seed: int) -> None:
     new_degrees(in_old, out_old, old_to_new, rd, rs, nd, ns, new_in, new_out)
     np.testing.assert_array_equal(new_in, want_in)
     np.testing.assert_array_equal(new_out, want_out)
+
+
+def test_slot_to_new_id_kernel_matches_numpy() -> None:
+    from shardrank.kernels.patch import slot_to_new_id
+    from shardrank.store.slots import ids_by_slot
+
+    rng = np.random.default_rng(3)
+    slot = rng.permutation(40).astype(np.uint32)
+    old_to_new = np.where(rng.random(40) < 0.8, np.arange(40), -1).astype(np.int64)
+    out = np.empty(40, dtype=np.int64)
+    slot_to_new_id(slot, old_to_new, out)
+    np.testing.assert_array_equal(out, old_to_new[ids_by_slot(slot)])

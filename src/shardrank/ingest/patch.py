@@ -37,12 +37,11 @@ import pyarrow.parquet as pq
 
 from .. import settings
 from ..errors import BadInputError, ShardrankError
-from ..kernels.patch import merge_rows, new_degrees, renumber
+from ..kernels.patch import merge_rows, new_degrees, renumber, slot_to_new_id
 from ..progress import Reporter
 from ..store import layout, urls
 from ..store.manifest import StoreManifest
 from ..store.reader import StoreReader
-from ..store.slots import ids_by_slot
 from ..store.writer import StoreWriter
 from .build import BuildOptions, _checked_width, _publish, _remove_stale_partials
 from .delta import (
@@ -391,8 +390,12 @@ def _write_shards(
 
     Rows go to the writer with their old edges in the old store's slot order (the writer's
     relabel sort is fast on rows that arrive nearly sorted), added edges after them."""
-    # old slot -> new id in one gather per edge (old slot -> old id -> new id composed once)
-    slot_to_new = old_to_new[ids_by_slot(np.asarray(r.read_slot()))]
+    # old slot -> new id, composed once, for one gather per edge. New ids fit in uint32 (a
+    # patch refuses 2^32 nodes): half the bytes of int64 for that random gather and for the
+    # writer's passes over the chunk; a vanished source (-1, wrapped) is never read, all its
+    # edges being removed ones
+    slot_to_new = np.empty(pos_new.shape[0], dtype=np.uint32)
+    slot_to_new_id(np.asarray(r.read_slot()), old_to_new, slot_to_new)
     ends = np.cumsum(new_in)
     total = int(ends[-1]) if ends.shape[0] else 0
     n_new, n_old = new_in.shape[0], pos_new.shape[0]
@@ -406,8 +409,8 @@ def _write_shards(
     # the chunk's output buffers, reused: every old edge of the chunk plus every added edge
     # at most (a kept old row's edges never grow beyond old + added)
     cap = 0
-    out_d = np.empty(0, dtype=np.int64)
-    out_s = np.empty(0, dtype=np.int64)
+    out_d = np.empty(0, dtype=np.uint32)
+    out_s = np.empty(0, dtype=np.uint32)
     a, rp, kp = 0, 0, 0
     while a < n_new:
         # the next chunk: new ids a .. b - 1 holding about CHUNK_EDGES edges (at least one row)
@@ -424,8 +427,8 @@ def _write_shards(
         need = int(old_in[oa:ob].sum()) + (ka - kp)
         if need > cap:
             cap = max(need, 2 * cap)
-            out_d = np.empty(cap, dtype=np.int64)
-            out_s = np.empty(cap, dtype=np.int64)
+            out_d = np.empty(cap, dtype=np.uint32)
+            out_s = np.empty(cap, dtype=np.uint32)
         o = 0
         for blk in range(oa // bn, (ob - 1) // bn + 1 if ob > oa else 0):
             first = r.manifest.blocks[blk].first_node

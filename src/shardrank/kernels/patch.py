@@ -117,3 +117,11 @@ def new_degrees(
     for e in range(add_d.shape[0]):
         new_in[add_d[e]] += 1
         new_out[add_s[e]] += 1
+
+
+@njit(cache=True)
+def slot_to_new_id(slot, old_to_new, out):  # pragma: no cover - jit
+    """``out[slot[i]] = old_to_new[i]``: old read slot -> new id (-1: vanished) in one scatter,
+    without the inverse permutation of the slots as an int64 temporary."""
+    for i in range(slot.shape[0]):
+        out[slot[i]] = old_to_new[i]
