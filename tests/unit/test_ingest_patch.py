@@ -328,3 +328,23 @@ def test_slot_to_new_id_kernel_matches_numpy() -> None:
     out = np.empty(40, dtype=np.int64)
     slot_to_new_id(slot, old_to_new, out)
     np.testing.assert_array_equal(out, old_to_new[ids_by_slot(slot)])
+
+
+def test_find_in_rows_kernel_matches_numpy() -> None:
+    from shardrank.kernels.patch import find_in_rows
+
+    rng = np.random.default_rng(5)
+    rows = [np.sort(rng.choice(30, rng.integers(0, 8), replace=False)) for _ in range(20)]
+    off = np.concatenate([[0], np.cumsum([len(x) for x in rows])]).astype(np.int64)
+    sources = np.concatenate(rows).astype(np.uint32)
+    local = rng.integers(0, 20, 200).astype(np.int64)
+    target = rng.integers(0, 30, 200).astype(np.int64)
+    found, where = np.empty(200, dtype=bool), np.empty(200, dtype=np.int64)
+    find_in_rows(off, sources, local, target, 100, found, where)
+    # numpy: np.searchsorted within each row, and membership by value
+    want_at = np.array(
+        [off[r] + np.searchsorted(rows[r], t) for r, t in zip(local, target, strict=True)]
+    )
+    want_hit = np.array([t in rows[r] for r, t in zip(local, target, strict=True)])
+    np.testing.assert_array_equal(found, want_hit)
+    np.testing.assert_array_equal(where, want_at + 100)

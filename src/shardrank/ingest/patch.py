@@ -37,7 +37,13 @@ import pyarrow.parquet as pq
 
 from .. import settings
 from ..errors import BadInputError, ShardrankError
-from ..kernels.patch import merge_rows, new_degrees, renumber, slot_to_new_id
+from ..kernels.patch import (
+    find_in_rows,
+    merge_rows,
+    new_degrees,
+    renumber,
+    slot_to_new_id,
+)
 from ..progress import Reporter
 from ..store import layout, urls
 from ..store.manifest import StoreManifest
@@ -103,24 +109,14 @@ def _present(
     for b in np.flatnonzero(np.diff(bounds)).tolist():
         idx = order[bounds[b] : bounds[b + 1]]
         sh = r.shard(b)
-        off = np.asarray(sh.offsets)
         local = dst[idx] - sh.info.first_node
-        lo, end = off[local].copy(), off[local + 1]
-        hi = end.copy()
+        hit = np.empty(idx.shape[0], dtype=bool)
+        at = np.empty(idx.shape[0], dtype=np.int64)
         target = slot[src[idx]].astype(np.int64)
-        while True:
-            act = np.flatnonzero(lo < hi)
-            if act.size == 0:
-                break
-            mid = (lo[act] + hi[act]) // 2
-            lt = sh.sources[mid].astype(np.int64) < target[act]
-            lo[act] = np.where(lt, mid + 1, lo[act])
-            hi[act] = np.where(lt, hi[act], mid)
-        ok = lo < end
-        hit = np.zeros(idx.shape[0], dtype=bool)
-        hit[ok] = sh.sources[lo[ok]].astype(np.int64) == target[ok]
+        off, srcs = np.asarray(sh.offsets), np.asarray(sh.sources)
+        find_in_rows(off, srcs, local, target, base[b], hit, at)
         found[idx] = hit
-        where[idx] = lo + base[b]
+        where[idx] = at
     return found, where
 
 

@@ -125,3 +125,23 @@ def slot_to_new_id(slot, old_to_new, out):  # pragma: no cover - jit
     without the inverse permutation of the slots as an int64 temporary."""
     for i in range(slot.shape[0]):
         out[slot[i]] = old_to_new[i]
+
+
+@njit(cache=True)
+def find_in_rows(off, sources, local, target, base, found, where):  # pragma: no cover - jit
+    """For each query ``j``: whether slot ``target[j]`` is among row ``local[j]``'s sources
+    ``sources[off[r] .. off[r + 1] - 1]`` (ascending), by binary search; ``where[j]`` gets
+    ``base`` plus its index (or the index it would have)."""
+    for j in range(local.shape[0]):
+        lo = off[local[j]]
+        end = off[local[j] + 1]
+        hi = end
+        t = target[j]
+        while lo < hi:
+            mid = (lo + hi) // 2
+            if sources[mid] < t:
+                lo = mid + 1
+            else:
+                hi = mid
+        found[j] = lo < end and sources[lo] == t
+        where[j] = base + lo
