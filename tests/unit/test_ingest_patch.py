@@ -348,3 +348,15 @@ def test_find_in_rows_kernel_matches_numpy() -> None:
     want_hit = np.array([t in rows[r] for r, t in zip(local, target, strict=True)])
     np.testing.assert_array_equal(found, want_hit)
     np.testing.assert_array_equal(where, want_at + 100)
+
+
+def test_scatter_kept_kernel_matches_numpy() -> None:
+    from shardrank.kernels.patch import scatter_kept
+
+    rng = np.random.default_rng(9)
+    kept = rng.random(30) < 0.7
+    old_to_new = np.where(kept, np.cumsum(kept) - 1, -1).astype(np.int64)
+    values = rng.integers(-(2**62), 2**62, 30)
+    out = np.full(int(kept.sum()), 0, dtype=np.int64)
+    scatter_kept(old_to_new, values, out)
+    np.testing.assert_array_equal(out, values[kept])

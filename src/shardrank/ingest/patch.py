@@ -42,6 +42,7 @@ from ..kernels.patch import (
     merge_rows,
     new_degrees,
     renumber,
+    scatter_kept,
     slot_to_new_id,
 )
 from ..progress import Reporter
@@ -347,13 +348,16 @@ def _write_nodes(
     kt: str,
 ) -> None:
     """nodes.parquet: id, key in new id order (surviving old keys merged with the new ones)."""
-    by_new = np.empty(n_new, dtype=np.int64)  # index into old keys, or n_old + index into uniq
-    by_new[old_to_new[kept]] = np.flatnonzero(kept)
-    by_new[u_to_new[new_u]] = len(old_keys) + new_u
     if kt == "int64":
-        keys: Any = np.concatenate([old_keys, uniq])
+        # the keys themselves in new id order: surviving old keys scattered, new keys added
+        keys: Any = np.empty(n_new, dtype=np.int64)
+        scatter_kept(old_to_new, old_keys, keys)
+        keys[u_to_new[new_u]] = uniq[new_u]
         ktype = pa.int64()
     else:
+        by_new = np.empty(n_new, dtype=np.int64)  # into old keys, or n_old + index into uniq
+        by_new[old_to_new[kept]] = np.flatnonzero(kept)
+        by_new[u_to_new[new_u]] = len(old_keys) + new_u
         keys = pa.concat_arrays([old_keys, uniq.cast(pa.large_string())])
         ktype = pa.string()
     schema = pa.schema([("id", pa.int64()), ("key", ktype)])
@@ -362,7 +366,7 @@ def _write_nodes(
         for a in range(0, n_new, step):
             b = min(a + step, n_new)
             k = (
-                pa.array(keys[by_new[a:b]])
+                pa.array(keys[a:b])
                 if kt == "int64"
                 else pc.take(keys, pa.array(by_new[a:b])).cast(ktype)
             )

@@ -145,3 +145,12 @@ def find_in_rows(off, sources, local, target, base, found, where):  # pragma: no
                 hi = mid
         found[j] = lo < end and sources[lo] == t
         where[j] = base + lo
+
+
+@njit(cache=True)
+def scatter_kept(old_to_new, values, out):  # pragma: no cover - jit
+    """``out[old_to_new[i]] = values[i]`` for every kept old id ``i`` (``old_to_new[i] >= 0``)."""
+    for i in range(old_to_new.shape[0]):
+        q = old_to_new[i]
+        if q >= 0:
+            out[q] = values[i]
