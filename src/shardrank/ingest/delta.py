@@ -161,7 +161,9 @@ def unique_keys(t_add: pa.Table, t_rem: pa.Table, key_type: str) -> tuple[Any, l
     if key_type == "int64":
         arrs = [as_keys(c, key_type) for c in cols]
         allk = np.concatenate(arrs)
-        order = np.argsort(allk, kind="stable")
+        # any order of equal keys gives them the same rank: the unstable sort (0.2 s on the
+        # 5.2 M keys of a 1 % delta at scale 23, against 0.5 - 1.0 s for kind="stable")
+        order = np.argsort(allk)
         srt = allk[order]
         first = np.ones(srt.shape[0], dtype=bool)
         first[1:] = srt[1:] != srt[:-1]
