@@ -401,9 +401,18 @@ def _write_shards(
     n_new, n_old = new_in.shape[0], pos_new.shape[0]
     add_d, add_s = split_pairs(add_new)
     bn = r.manifest.block_nodes
-    blocks = [r.shard(b) for b in range(r.n_blocks)]
-    offs = [np.asarray(sh.offsets, dtype=np.int64) for sh in blocks]
-    srcs = [np.asarray(sh.sources) for sh in blocks]
+    # the old blocks open as the chunks reach them and close once passed: mapped pages of
+    # passed blocks leave the process's resident set
+    opened: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+
+    def block(i: int) -> tuple[np.ndarray, np.ndarray]:
+        if i not in opened:
+            for j in [j for j in opened if j < i]:
+                del opened[j]
+            sh = r.shard(i)
+            opened[i] = np.asarray(sh.offsets, dtype=np.int64), np.asarray(sh.sources)
+        return opened[i]
+
     e_base = np.concatenate([[0], np.cumsum([b.n_edges for b in r.manifest.blocks])]).tolist()
     old_in = np.asarray(r.in_degree())
     # the chunk's output buffers, reused: every old edge of the chunk plus every added edge
@@ -434,9 +443,10 @@ def _write_shards(
             first = r.manifest.blocks[blk].first_node
             i0 = max(oa, first) - first
             i1 = min(ob, first + r.manifest.blocks[blk].n_nodes) - first
+            off, srcs = block(blk)
             o, rp, kp = merge_rows(
-                offs[blk][i0 : i1 + 1],
-                srcs[blk],
+                off[i0 : i1 + 1],
+                srcs,
                 e_base[blk],
                 old_to_new[first + i0 : first + i1],
                 slot_to_new,
