@@ -95,8 +95,9 @@ def cmd_resume(a: argparse.Namespace, rep: Reporter) -> int:
     given: dict[str, Any] = {k: getattr(a, k) for k in ("damping", "tol", "max_iter", "method", "dead_ends")}
     expect = None
     if any(v is not None for v in given.values()):
-        from ..results.result import read_run_json
         from pathlib import Path
+
+        from ..results.result import read_run_json
 
         doc = read_run_json(Path(a.run))
         base = {k: doc["options"][k] for k in given}
