@@ -150,12 +150,11 @@ def _default_threads(sweep: bool) -> int:
     return _cores() if sweep else 1
 
 
-def power_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
-    """New scores of block ``t`` from the step's scaled scores; (scores, residual partials)."""
-    _set_threads(job.threads or _default_threads(sweep=False))
-    step = urls.parse_location(job.step_dir)
+def _gather(
+    job: StepJob, t: BlockTask, step: urls.Location, s: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Block ``t``'s new scores gathered from the scaled scores ``s``; (scores, partials)."""
     offsets, sources, w = _arrays(_reader(job).shard(t.index))
-    s = _vector(step_file(step, "s"))
     r_block = np.array(
         _vector(step_file(step, "r", t.index)), dtype=np.float64
     )  # private, writable
@@ -176,6 +175,13 @@ def power_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
         part,
     )
     return r_block, part
+
+
+def power_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
+    """New scores of block ``t`` from the step's scaled scores; (scores, residual partials)."""
+    _set_threads(job.threads or _default_threads(sweep=False))
+    step = urls.parse_location(job.step_dir)
+    return _gather(job, t, step, _vector(step_file(step, "s")))
 
 
 def _sweep_vector(job: StepJob, step: urls.Location, block: int) -> np.ndarray:
@@ -203,23 +209,5 @@ def sweep_block(job: StepJob, t: BlockTask) -> tuple[np.ndarray, np.ndarray]:
     """Gauss-Seidel update of block ``t``, seeing the fresh scores of every block before it."""
     _set_threads(job.threads or _default_threads(sweep=True))
     step = urls.parse_location(job.step_dir)
-    offsets, sources, w = _arrays(_reader(job).shard(t.index))
-    s = _sweep_vector(job, step, t.index)
-    r_block = np.array(_vector(step_file(step, "r", t.index)), dtype=np.float64)
-    part = np.zeros(n_chunks(t.n_nodes, job.chunk))
-    # the same kernel as a power step, reading a vector in which blocks < t are fresh
-    gather_block(
-        offsets,
-        sources,
-        w,
-        s,
-        0,
-        job.damping,
-        t.add_uniform,
-        t.add_teleport,
-        _teleport_block(t),
-        job.chunk,
-        r_block,
-        part,
-    )
-    return r_block, part
+    # the power step's gather, over a vector in which blocks < t are fresh
+    return _gather(job, t, step, _sweep_vector(job, step, t.index))
