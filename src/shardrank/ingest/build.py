@@ -179,20 +179,28 @@ def build_store(
     files = resolve_inputs([str(e) for e in edges])
     node_files = resolve_inputs([str(n) for n in o.nodes]) if o.nodes else []
     memory = parse_memory(o.memory)
-    out_p.parent.mkdir(parents=True, exist_ok=True)
-    _remove_stale_partials(out_p, rep)
-    tmp = layout.partial_dir(out_p, os.getpid())
+    with staged_store(out_p, o.overwrite, rep) as tmp:
+        manifest = _build(files, node_files, tmp, o, memory, rep)
+    rep.done()
+    return manifest
+
+
+@contextmanager
+def staged_store(out: Path, overwrite: bool, rep: Reporter) -> Iterator[Path]:
+    """A fresh temporary sibling of ``out`` to write a store into (leftovers of dead builds
+    are cleaned first); renamed to ``out`` on a clean exit, removed on any failure."""
+    out.parent.mkdir(parents=True, exist_ok=True)
+    _remove_stale_partials(out, rep)
+    tmp = layout.partial_dir(out, os.getpid())
     shutil.rmtree(tmp, ignore_errors=True)
     tmp.mkdir()
     try:
-        manifest = _build(files, node_files, tmp, o, memory, rep)
+        yield tmp
         rep.event("phase", "publishing the store...", phase="publish")
-        _publish(tmp, out_p, o.overwrite)
+        _publish(tmp, out, overwrite)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    rep.done()
-    return manifest
 
 
 def _build_to_url(edges: Sequence[str | os.PathLike[str]], loc: urls.Location, o: BuildOptions,

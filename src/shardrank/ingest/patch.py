@@ -24,7 +24,6 @@ from __future__ import annotations
 
 import hashlib
 import os
-import shutil
 import time
 from collections.abc import Sequence
 from pathlib import Path
@@ -50,7 +49,7 @@ from ..store import layout, urls
 from ..store.manifest import StoreManifest
 from ..store.reader import StoreReader
 from ..store.writer import StoreWriter
-from .build import BuildOptions, _checked_width, _publish, _remove_stale_partials
+from .build import BuildOptions, _checked_width, staged_store
 from .delta import (
     as_keys,
     count_below,
@@ -192,18 +191,8 @@ def patch_store(
     r.verify_checksums(
         lambda name, i, n: rep.progress("verifying the old store", i + 1, n, "files")
     )
-    out_p.parent.mkdir(parents=True, exist_ok=True)
-    _remove_stale_partials(out_p, rep)
-    tmp = layout.partial_dir(out_p, os.getpid())
-    shutil.rmtree(tmp, ignore_errors=True)
-    tmp.mkdir()
-    try:
+    with staged_store(out_p, overwrite, rep) as tmp:
         manifest = _patch(r, tmp, t_add, t_rem, add_files, rem_files, rep)
-        rep.event("phase", "publishing the store...", phase="publish")
-        _publish(tmp, out_p, overwrite)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
     rep.event(
         "built",
         f"patched store: {manifest.n_nodes:,} nodes, {manifest.n_edges:,} edges "
