@@ -14,6 +14,7 @@ import duckdb
 
 from ..errors import BadInputError
 from ..ingest.build import BuildOptions
+from ..ingest.patch import delta_input_fingerprints, patched_fingerprint
 from ..ingest.sources import fingerprint_inputs, resolve_inputs
 from ..ingest.tables import Columns, choose_columns, describe, sniff_text
 from ..solve.options import RankOptions
@@ -100,11 +101,10 @@ def delta_fingerprint(
     delta writes (ingest/patch.py records the same value; a test checks that they agree).
 
     When the published store is itself this delta applied to its base (the same delta given
-    again), its own fingerprint: the refresh is then up to date instead of patching twice.
+    again), its own fingerprint: the refresh is then up to date. That is exact, not a guess:
+    a patch is idempotent, ((E - R) | A) patched again with R and A is the same edge set.
     Reads every delta byte once (sha256).
     """
-    from ..ingest.patch import delta_input_fingerprints, patched_fingerprint
-
     add_fp, rem_fp = delta_input_fingerprints(published, add, remove)
     inp = published.input
     if (inp.get("add", {}).get("fingerprint"), inp.get("remove", {}).get("fingerprint")) == (
